@@ -1,0 +1,1 @@
+"""Reporting: text tables, JSON and plots. Reads results; never recomputes physics."""

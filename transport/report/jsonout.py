@@ -1,0 +1,122 @@
+"""The machine-readable output shared by every command.
+
+Layout (stable keys; later commands add their own top-level keys)::
+
+    {
+      "version": "0.1.0",
+      "command": "viscosity",
+      "inputs":   [{"path", "format", "sha256", "read", "rows", "columns"}, ...],
+      "settings": {...},
+      "warnings": ["...", ...],
+      "results":  [{"quantity", "method", "value", "stderr", "interval95", "unit",
+                    "group", "corrected", "window", "window_unit", "n_independent",
+                    "diagnostics", "warnings"}, ...]
+    }
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import sys
+import tempfile
+from collections.abc import Iterable, Mapping, Sequence
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from ..estimate import Estimate
+from ..series import Source
+
+__all__ = ["build_document", "dumps", "write_json"]
+
+
+def _jsonable(v: Any) -> Any:
+    if isinstance(v, Mapping):
+        return {str(k): _jsonable(x) for k, x in v.items()}
+    if isinstance(v, (list, tuple)):
+        return [_jsonable(x) for x in v]
+    if isinstance(v, np.ndarray):
+        return _jsonable(v.tolist())
+    if isinstance(v, (np.integer,)):
+        return int(v)
+    if isinstance(v, (float, np.floating)):
+        f = float(v)
+        return f if math.isfinite(f) else None
+    if isinstance(v, Path):
+        return str(v)
+    return v
+
+
+def build_document(
+    command: str,
+    *,
+    inputs: Iterable[Source],
+    settings: Mapping[str, Any],
+    results: Sequence[Estimate],
+    warnings: Iterable[str] = (),
+    extra: Mapping[str, Any] | None = None,
+) -> dict[str, Any]:
+    """Assemble the common JSON document.
+
+    Parameters
+    ----------
+    command : str
+        The command that produced the results.
+    inputs : iterable of Source
+        What was read.
+    settings : mapping
+        The options in force (after defaults were resolved).
+    results : sequence of Estimate
+        The estimates, in print order.
+    warnings : iterable of str
+        Run-level warnings (each estimate also carries its own).
+    extra : mapping, optional
+        Additional top-level keys for this command.
+    """
+    from .. import __version__
+
+    all_warnings = list(dict.fromkeys([*warnings, *(w for r in results for w in r.warnings)]))
+    doc: dict[str, Any] = {
+        "version": __version__,
+        "command": command,
+        "inputs": [s.to_record() for s in inputs],
+        "settings": _jsonable(dict(settings)),
+        "warnings": all_warnings,
+        "results": [r.to_record() for r in results],
+    }
+    if extra:
+        for k, v in extra.items():
+            if k in doc:
+                raise ValueError(f"extra key {k!r} would overwrite a common key")
+            doc[k] = _jsonable(v)
+    return doc
+
+
+def dumps(doc: Mapping[str, Any]) -> str:
+    """Serialise with NaN/inf as null (strict JSON)."""
+    return json.dumps(_jsonable(doc), indent=2, allow_nan=False) + "\n"
+
+
+def write_json(doc: Mapping[str, Any], path: str | os.PathLike[str]) -> None:
+    """Write `doc` to `path` atomically, or to standard output if `path` is ``-``."""
+    text = dumps(doc)
+    if str(path) == "-":
+        sys.stdout.write(text)
+        sys.stdout.flush()
+        return
+    _atomic_write_text(Path(path), text)
+
+
+def _atomic_write_text(path: Path, text: str) -> None:
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8") as fh:
+            fh.write(text)
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
