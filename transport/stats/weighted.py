@@ -113,7 +113,7 @@ def weighted_msd(
     x = np.asarray(x, dtype=np.float64)
     if x.ndim != 3:
         raise ValueError(f"x must have shape (series, components, samples), got {x.shape}")
-    s, c, n = x.shape
+    s, _, n = x.shape
     weights = np.asarray(weights, dtype=np.float64)
     if not 0 <= max_lag < n:
         raise ValueError(f"max_lag must lie in [0, {n - 1}], got {max_lag}")
