@@ -44,6 +44,7 @@ from scipy import optimize, stats
 from .errors import InputError, RunTooShortError
 from .estimate import Estimate
 from .series import StressSeries
+from .stats import detect_equilibration
 from .stats.weighted import weighted_autocorrelation, weighted_msd
 
 __all__ = [
@@ -71,6 +72,8 @@ TARGET_PIECES = 20
 MIN_PIECES = 4
 #: Sokal's window constant (window >= c * tau_int).
 WINDOW_C = 5.0
+_EIN_K0 = 3.0
+_EIN_K1 = 0.2
 
 
 def traceless_stress(pressure: np.ndarray) -> np.ndarray:
@@ -164,6 +167,29 @@ def _level_off_time(p: np.ndarray, weights: np.ndarray, dt: float) -> float:
     return m * dt
 
 
+def _remove_significant_mean(p: np.ndarray, weights: np.ndarray) -> str:
+    """Remove a component's mean only where it differs significantly from zero.
+
+    An isotropic liquid in equilibrium has zero mean traceless stress, so the Green–Kubo
+    autocorrelation is computed without subtracting the sample mean: subtracting it biases
+    the running integral low by about 2 eta t / T (t the lag, T the run length). A mean
+    beyond 4 correlation-aware standard errors (from the block variance of 20 blocks) is
+    removed and reported. Modifies `p` in place; returns the names of the shifted components.
+    """
+    names = ("xx", "yy", "zz", "xy", "xz", "yz")
+    n = p.shape[1]
+    nb = 20
+    if n < 20 * nb:
+        return ""
+    m = p.mean(axis=1)
+    blocks = p[:, : (n // nb) * nb].reshape(6, nb, -1).mean(axis=2)
+    se = blocks.std(axis=1, ddof=1) / np.sqrt(nb)
+    bad = (np.abs(m) > 4 * se) & (weights > 0)
+    if bad.any():
+        p[bad] -= m[bad, None]
+    return ", ".join(n_ for n_, b in zip(names, bad, strict=True) if b)
+
+
 def _prepare(
     series: list[StressSeries],
     *,
@@ -203,8 +229,6 @@ def _prepare(
             )
         start = 0
         if skip == "auto":
-            from .stats import detect_equilibration
-
             trace = (s.pressure[0] + s.pressure[1] + s.pressure[2]) / 3.0
             start = int(detect_equilibration(trace).start)
         elif skip:
@@ -218,7 +242,14 @@ def _prepare(
             )
         skipped.append(start * s.dt)
         p = traceless_stress(s.pressure[:, start:])
-        p -= p.mean(axis=1, keepdims=True)
+        shifted = _remove_significant_mean(p, weights)
+        if shifted:
+            notes.append(
+                f"{s.source.path or 'series'}: mean traceless stress of {shifted} differs "
+                "from zero beyond 4 standard errors; an isotropic liquid in equilibrium has "
+                "zero mean (is the system solid-like, flowing or still equilibrating?); the "
+                "mean was removed"
+            )
         trimmed.append(p)
         vol = s.volume if np.ndim(s.volume) == 0 else float(np.mean(s.volume[start:]))
         prefactors.append(float(vol) / (s.units.boltzmann * s.temperature))
@@ -338,29 +369,34 @@ def _fit_power(t: np.ndarray, sigma: np.ndarray) -> tuple[float, float]:
 def _fit_double_exp(
     t: np.ndarray, eta: np.ndarray, b: float, p0: Sequence[float] | None = None
 ) -> np.ndarray:
-    """Weighted double-exponential fit of the mean running integral (Zhang et al. 2015)."""
+    """Weighted double-exponential fit of the mean running integral (Zhang et al. 2015).
+
+    The fit runs on dimensionless time t/t_max and integral eta/max|eta| so that it behaves
+    the same in SI and reduced units; parameters are returned in the input's units.
+    """
     n = t.size
     idx = np.unique(np.linspace(0, n - 1, num=min(n, 400)).astype(int))
-    tt, yy = t[idx], eta[idx]
+    tscale = float(t[-1])
+    yscale = float(np.max(np.abs(eta))) or 1.0
+    tt, yy = t[idx] / tscale, eta[idx] / yscale
     sig = np.maximum(tt, tt[0] if tt[0] > 0 else 1.0) ** b
     slope0 = yy[1] / tt[1] if tt.size > 1 and tt[1] > 0 else 1.0
-    plateau = max(float(np.mean(yy[-max(1, yy.size // 5):])), 1e-300)
-    tmax = float(tt[-1])
+    plateau = max(float(np.mean(yy[-max(1, yy.size // 5):])), 1e-12)
     if p0 is None:
         guesses = []
-        for tau1_f in (0.01, 0.05):
+        for tau1 in (0.01, 0.05):
             for alpha in (0.5, 0.9):
-                tau1 = tau1_f * tmax
-                tau2 = max((plateau / max(slope0, 1e-300) - alpha * tau1) / (1 - alpha), tau1)
-                guesses.append([max(slope0, 1e-300), alpha, tau1, min(tau2, 10 * tmax)])
+                tau2 = max((plateau / max(slope0, 1e-12) - alpha * tau1) / (1 - alpha), tau1)
+                guesses.append([max(slope0, 1e-12), alpha, tau1, min(tau2, 10.0)])
     else:
-        guesses = [list(p0)]
-    lower = [0.0, 0.0, 1e-6 * tmax, 1e-6 * tmax]
-    upper = [np.inf, 1.0, 100 * tmax, 100 * tmax]
+        a, alpha, tau1, tau2 = p0
+        guesses = [[a * tscale / yscale, alpha, tau1 / tscale, tau2 / tscale]]
+    lower = [0.0, 0.0, 1e-6, 1e-6]
+    upper = [np.inf, 1.0, 100.0, 100.0]
     best, best_cost = None, np.inf
     for g in guesses:
-        g = [float(np.clip(v, lo * 1.0001 if lo else 0, hi if np.isfinite(hi) else v))
-             for v, lo, hi in zip(g, lower, upper, strict=True)]
+        g = [float(np.clip(v, lo * 1.0001 if lo else 0.0, hi)) for v, lo, hi in
+             zip(g, lower, upper, strict=True)]
         try:
             with _warnings.catch_warnings():
                 _warnings.simplefilter("ignore")
@@ -375,7 +411,8 @@ def _fit_double_exp(
             best, best_cost = popt, cost
     if best is None:
         raise RuntimeError("double-exponential fit did not converge")
-    return best
+    a, alpha, tau1, tau2 = best
+    return np.array([a * yscale / tscale, alpha, tau1 * tscale, tau2 * tscale])
 
 
 def _plateau(p: np.ndarray) -> float:
@@ -735,11 +772,12 @@ def _einstein(
                   out=g[:, 1:])
         msd[i] = weighted_msd(g[None], weights, max_lag=lag)[0] * pc.prefactor / 2.0
     if fit_window == "auto":
-        # linear regime: after the stress correlation has decayed (4 Sokal windows), and
-        # not so long that the few long-lag origins dominate the noise (20 windows)
+        # linear regime: from 3 Sokal windows (the stress correlation has decayed, also its
+        # slow tail) to a fifth of a segment (longer lags add noise faster than signal);
+        # chosen so that the interval's coverage on OU data with known eta is 95%
         lvl = max(1, int(round(prep.t_level / prep.dt)))
-        k0 = 4 * lvl
-        k1 = min(lag, 20 * lvl)
+        k0 = int(_EIN_K0 * lvl)
+        k1 = min(lag, max(2 * k0, int(_EIN_K1 * prep.segment_length)))
         if k1 < 2 * k0:
             k0 = max(1, k1 // 2)
     else:
