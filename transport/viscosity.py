@@ -44,8 +44,7 @@ from scipy import optimize, stats
 from .errors import InputError, RunTooShortError
 from .estimate import Estimate
 from .series import StressSeries
-from .stats import detect_equilibration
-from .stats.weighted import weighted_autocorrelation, weighted_msd
+from .stats import detect_equilibration, weighted_autocorrelation, weighted_msd
 
 __all__ = [
     "ViscosityAnalysis",
@@ -262,6 +261,7 @@ def _prepare(
                     "(Green–Kubo is exact at constant volume)"
                 )
 
+    tscale, tunit = series[0].units.time_scale, series[0].units.time_unit
     longest = max(trimmed, key=lambda a: a.shape[1])
     t_level = _level_off_time(longest, weights, dt)
     lvl = max(1, int(round(t_level / dt)))
@@ -285,7 +285,7 @@ def _prepare(
         notes.append(
             f"{len(pieces)} independent pieces: {len(series)} replica(s) split into "
             f"segments of {seg_len} samples, {seg_len / lvl:.0f}x the time at which the "
-            f"stress correlation has decayed ({t_level:.4g} in internal time units)"
+            f"stress correlation has decayed ({t_level * tscale:.3g} {tunit})"
         )
     shortest = min((pc.stress.shape[1] for pc in pieces), default=0)
     if max_lag is None:

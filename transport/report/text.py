@@ -23,6 +23,12 @@ def format_number(x: float | None, sig: int = 4) -> str:
     return f"{x:.{sig - 1}e}"
 
 
+def _count(n: float | None) -> str:
+    if n is None or not math.isfinite(n):
+        return "-"
+    return str(int(n)) if float(n).is_integer() else format_number(n, 3)
+
+
 def _window(e: Estimate) -> str:
     if e.window is None:
         return "-"
@@ -54,7 +60,7 @@ def format_estimates(
             f"[{format_number(lo)}, {format_number(hi)}]",
             e.unit,
             _window(e),
-            format_number(e.n_independent, 3) if e.n_independent is not None else "-",
+            _count(e.n_independent),
         ))
     if all(r[1] == "-" for r in rows):
         header = header[:1] + header[2:]
