@@ -7,7 +7,6 @@ Output files (``--json``, ``--plot``) are written only after every computation s
 
 from __future__ import annotations
 
-import sys
 from collections.abc import Callable
 from typing import Any
 
@@ -116,5 +115,536 @@ def _parse_time(value: str | None, option: str) -> float | None:
 # ---- commands are registered below (one block per command) -----------------------------
 
 
-if __name__ == "__main__":  # pragma: no cover
-    sys.exit(main())
+
+# ---- viscosity ---------------------------------------------------------------------------
+
+def _stress_options(f: Callable) -> Callable:
+    """Options shared by commands that read the pressure tensor."""
+    opts = [
+        click.option("--units", default=None,
+                     help="Unit convention where the file does not say it: real, metal, lj, "
+                          "si, cgs, electron, micro, nano, gromacs."),
+        click.option("--timestep", type=float, default=None,
+                     help="Integration time step in the engine's time unit, where the file "
+                          "does not say it."),
+        click.option("--temperature", type=float, default=None,
+                     help="Thermostat set point (K, or reduced); default: the mean of the "
+                          "file's temperature column."),
+        click.option("--volume", type=float, default=None,
+                     help="Box volume in the engine's length unit cubed, where the file has "
+                          "no volume or box-length column."),
+        click.option("--run", "run", default=None,
+                     help="Which thermo block of a log to use (1-based), or 'all'."),
+    ]
+    for o in reversed(opts):
+        f = o(f)
+    return f
+
+
+def _load_stress_files(ctx: click.Context, files: tuple[str, ...], **kw: Any) -> list:
+    from ._progress import want_progress
+    from .io import load_stress
+
+    return [load_stress(f, progress=want_progress(_quiet(ctx)), **kw) for f in files]
+
+
+@main.command()
+@click.argument("files", nargs=-1, required=True, type=click.Path(dir_okay=False))
+@_stress_options
+@click.option("--method", type=click.Choice(["green-kubo", "einstein", "both"]),
+              default="green-kubo", show_default=True, help="Estimator(s) to report.")
+@click.option("--cutoff", default="auto", show_default=True,
+              help="Green–Kubo cutoff: 'auto' (time decomposition) or a time in ps (tau for "
+                   "reduced units).")
+@click.option("--fit-window", default="auto", show_default=True,
+              help="Einstein fit window 'auto' or T0:T1 in ps (tau).")
+@click.option("--max-lag", default=None, help="Longest correlation lag in ps (tau).")
+@click.option("--skip", default="auto", show_default=True,
+              help="Initial transient to drop: 'auto', or a time in ps (tau); 0 keeps all.")
+@click.option("--components", type=click.Choice(["all", "off-diagonal"]), default="all",
+              show_default=True,
+              help="All components of the traceless tensor, or off-diagonal only.")
+@json_option
+@plot_option
+@click.pass_context
+def viscosity(ctx: click.Context, files: tuple[str, ...], units: str | None,
+              timestep: float | None, temperature: float | None, volume: float | None,
+              run: str | None, method: str, cutoff: str, fit_window: str,
+              max_lag: str | None, skip: str, components: str, json_path: str | None,
+              plot_path: str | None) -> None:
+    """Shear viscosity from the pressure tensor in FILES (several files = replicas)."""
+    from .report.figures import plot_format
+    from .report.jsonout import build_document, write_json
+    from .report.text import format_estimates
+    from .viscosity import analyse_viscosity
+
+    if plot_path is not None:
+        try:
+            plot_format(plot_path)
+        except ValueError as exc:
+            raise click.BadParameter(str(exc), param_hint="--plot") from None
+    cut_t = _parse_time(cutoff, "--cutoff")
+    lag_t = _parse_time(max_lag, "--max-lag")
+    skip_t = None if skip == "auto" else _parse_time(skip, "--skip")
+    window = None
+    if fit_window != "auto":
+        try:
+            a, b = (float(v) for v in fit_window.split(":"))
+        except ValueError:
+            raise click.BadParameter(f"expected 'auto' or T0:T1, got {fit_window!r}",
+                                     param_hint="--fit-window") from None
+        window = (a, b)
+    series = _load_stress_files(ctx, files, units=units, timestep=timestep,
+                                temperature=temperature, volume=volume, run=run)
+    ts = series[0].units.time_scale  # reported time unit -> internal: divide by ts
+    result = analyse_viscosity(
+        series,
+        method=method,
+        cutoff="auto" if cut_t is None else cut_t / ts,
+        fit_window="auto" if window is None else (window[0] / ts, window[1] / ts),
+        max_lag=None if lag_t is None else lag_t / ts,
+        skip="auto" if skip == "auto" else (skip_t or 0.0) / ts,
+        components="all" if components == "all" else "off_diagonal",
+    )
+    est = result.estimates
+    n_files = len(files)
+    title = (f"shear viscosity from {n_files} file(s)"
+             + (" treated as independent replicas" if n_files > 1 else ""))
+    # compute everything before writing anything
+    fig = None
+    if plot_path is not None:
+        from .report.viscosity_plots import viscosity_figure
+
+        fig = viscosity_figure(result.green_kubo, result.einstein)
+    doc = None
+    if json_path is not None:
+        settings = {"method": method, "cutoff": cutoff, "fit_window": fit_window,
+                    "max_lag": max_lag, "skip": skip, "components": components,
+                    "units": series[0].units.name, "temperature": temperature,
+                    "volume": volume, "timestep": timestep, "run": run}
+        doc = build_document("viscosity", inputs=[s.source for s in series],
+                             settings=settings, results=est)
+    if fig is not None:
+        from .report.figures import save_figure
+
+        save_figure(fig, plot_path)
+    if doc is not None:
+        write_json(doc, json_path)
+    if json_path != "-":
+        click.echo(format_estimates(est, title=title))
+
+
+# ---- demo --------------------------------------------------------------------------------
+
+@main.command()
+@click.option("--out", type=click.Path(file_okay=False), default="demo-output",
+              show_default=True, help="Folder for the demo's data, figures and JSON.")
+@click.option("--seed", type=int, default=2, show_default=True,
+              help="Seed of the scenario's random generator.")
+@click.pass_context
+def demo(ctx: click.Context, out: str, seed: int) -> None:
+    """Run every analysis on an invented scenario with known truth."""
+    from ._progress import want_progress
+    from .demo import run_demo
+
+    run_demo(out, seed=seed, echo=click.echo, progress=want_progress(_quiet(ctx)))
+
+
+# ---- inspect -----------------------------------------------------------------------------
+
+@main.command("inspect")
+@click.argument("file", type=click.Path(dir_okay=False))
+@click.option("--run", "run", default=None,
+              help="Thermo run (block) to use: N (1-based), A-B (joined), 'last' or 'all'; "
+                   "default: the last with the pressure tensor, joined with the runs it "
+                   "continues.")
+@click.option("--units", default=None,
+              help="Unit convention where the file does not say it: real, metal, lj, si, "
+                   "cgs, electron, micro, nano, gromacs.")
+@click.option("--timestep", type=float, default=None,
+              help="Integration time step in the engine's time unit, where the file does "
+                   "not say it.")
+@json_option
+@click.pass_context
+def inspect_file(ctx: click.Context, file: str, run: str | None, units: str | None,
+                 timestep: float | None, json_path: str | None) -> None:
+    """Show what the readers find in FILE: format, thermo runs (blocks) with their steps
+    and columns, which were used, units, time step, rows kept and dropped, warnings."""
+    from ._progress import want_progress
+    from .io import parse_run, read_table
+    from .io._inspect import describe_table, stress_summary
+    from .report.jsonout import build_document, write_json
+
+    try:
+        run_spec = parse_run(run)
+    except ValueError as exc:
+        raise click.BadParameter(str(exc), param_hint="--run") from None
+    table = read_table(file, run=run_spec, units=units, timestep=timestep,
+                       progress=want_progress(_quiet(ctx)))
+    summary = stress_summary(table)
+    text = describe_table(table, summary)
+    if json_path is not None:
+        doc = build_document(
+            "inspect", inputs=[table.source],
+            settings={"run": run, "units": units, "timestep": timestep},
+            results=[], warnings=table.warnings,
+            extra={
+                "tables": [b.to_record() for b in table.blocks],
+                "resolved": {
+                    "units": table.units.name if table.units is not None else None,
+                    "units_source": table.units_source,
+                    "timestep": table.timestep,
+                    "timestep_source": table.timestep_source,
+                    "compression": table.compression,
+                    "rows": table.n,
+                    "stress": summary,
+                },
+            },
+        )
+        write_json(doc, json_path)
+    if json_path != "-":
+        click.echo(text)
+
+
+# ---- average -----------------------------------------------------------------------------
+
+def _average_unit(table: Any, column: str) -> str:
+    """Unit label of a column where its meaning and the file's units are known, else ''."""
+    u = table.units
+    canon = {v: k for k, v in table.canonical.items()}.get(column)
+    if u is None or canon is None:
+        return ""
+    if canon in ("press", "pxx", "pyy", "pzz", "pxy", "pxz", "pyz", "pyx", "pzx", "pzy"):
+        return u.pressure_label
+    if canon == "temperature":
+        return "reduced" if u.reduced else "K"
+    if canon in ("lx", "ly", "lz"):
+        return u.length_label
+    if canon == "volume":
+        return f"{u.length_label}^3"
+    return ""
+
+
+def _average_column_name(table: Any, name: str) -> str:
+    """The file's name of the column `name` found by ``Table.column``."""
+    if name in table.columns:
+        return name
+    if name.lower() in table.canonical:
+        return table.canonical[name.lower()]
+    return next((k for k in table.columns if k.lower() == name.lower()), name)
+
+
+def _average_check_finite(table: Any, column: str, x: Any) -> None:
+    """InputError naming the file line of the first non-finite value of a column."""
+    import numpy as np
+
+    bad = np.flatnonzero(~np.isfinite(x))
+    if bad.size == 0:
+        return
+    row = int(bad[0])
+    line = None
+    for first_row, first_line in getattr(table, "line_map", ()):
+        if first_row <= row:
+            line = first_line + row - first_row
+    raise InputError(
+        f"column {column!r} has a non-finite value ({x[row]}) in row {row + 1}",
+        path=table.source.path or None, line=line,
+        expected="a number in every row", fix="repair or remove the damaged rows",
+    )
+
+
+def _average_time_axis(table: Any) -> tuple[float | None, float, str]:
+    """(dt, t0, unit) of the rows in the reported time unit, or (None, 0, 'samples')."""
+    import numpy as np
+
+    if table.time is None or table.units is None or table.n < 2:
+        return None, 0.0, "samples"
+    t = np.asarray(table.time, dtype=np.float64) * table.units.time_scale
+    steps = np.diff(t)
+    dt = float((t[-1] - t[0]) / (t.size - 1))
+    if not dt > 0 or np.max(np.abs(steps - dt)) > 1e-6 * dt:
+        raise InputError(
+            f"rows are not evenly spaced in time (interval {steps.min():.6g} to "
+            f"{steps.max():.6g} {table.units.time_unit})",
+            path=table.source.path or None,
+            expected="a constant output interval",
+            fix="choose one thermo run with --run",
+        )
+    return dt, float(t[0]), table.units.time_unit
+
+
+def _average_table_text(rows: list[tuple[str, Any]]) -> str:
+    """Fixed-width table: source, column, mean, stderr, 95% interval, tau_int, n_eff,
+    t_equil; then the warnings, each once."""
+    from .report.text import format_number as f
+
+    header = ("source", "column", "mean", "stderr", "95% interval", "unit", "tau_int",
+              "n_eff", "t_equil")
+    lines = []
+    for label, e in rows:
+        d = e.diagnostics
+        t_unit = d.get("time_unit", e.window_unit)
+        if e.method == "replicas_student_t":
+            tau, t_eq = "-", "-"
+        else:
+            tau = f"{f(d['tau_int'], 3)} {t_unit}"
+            t_eq = f"{f(d['t_equil'], 3)} {t_unit}"
+        lines.append((label, e.quantity, f(e.value, 6), f(e.stderr, 2),
+                      f"[{f(e.interval[0], 6)}, {f(e.interval[1], 6)}]", e.unit or "-",
+                      tau, f(e.n_independent, 3), t_eq))
+    widths = [max(len(h), *(len(r[i]) for r in lines)) for i, h in enumerate(header)]
+    out = ["  ".join(h.ljust(w) for h, w in zip(header, widths, strict=True))]
+    out += ["  ".join(c.ljust(w) for c, w in zip(r, widths, strict=True)) for r in lines]
+    warned = list(dict.fromkeys(w for _, e in rows for w in e.warnings))
+    out += [f"warning: {w}" for w in warned]
+    return "\n".join(s.rstrip() for s in out)
+
+
+@main.command()
+@click.argument("files", nargs=-1, required=True, type=click.Path(dir_okay=False))
+@click.option("--column", "columns", multiple=True, required=True,
+              help="Column to average, by its name in the file (or a canonical name such "
+                   "as density, press, temperature); repeat for several.")
+@click.option("--skip", default="auto", show_default=True,
+              help="Initial transient to drop: 'auto' (detected), a time in ps (tau for "
+                   "reduced units; rows if the file has no time axis), or 0 to keep all.")
+@click.option("--units", default=None,
+              help="Unit convention where the file does not say it: real, metal, lj, si, "
+                   "cgs, electron, micro, nano, gromacs.")
+@click.option("--timestep", type=float, default=None,
+              help="Integration time step in the engine's time unit, where the file does "
+                   "not say it.")
+@click.option("--run", "run", default=None,
+              help="Thermo run (block) of a log: N (1-based), A-B (joined), 'last' or 'all'.")
+@click.option("--replicas/--no-replicas", default=True, show_default=True,
+              help="With several files, also combine them as independent replicas "
+                   "(Student t over the per-file means).")
+@json_option
+@plot_option
+@click.pass_context
+def average(ctx: click.Context, files: tuple[str, ...], columns: tuple[str, ...], skip: str,
+            units: str | None, timestep: float | None, run: str | None, replicas: bool,
+            json_path: str | None, plot_path: str | None) -> None:
+    """Mean of any column of FILES (density, energy, pressure...) with an error bar that
+    accounts for correlation: stderr, 95% interval, autocorrelation time, effective samples
+    and the detected equilibration time. Each file is analysed on its own; with several
+    files their replica estimate follows."""
+    from dataclasses import replace
+    from pathlib import Path
+
+    from ._progress import want_progress
+    from .io import parse_run, read_table
+    from .report.figures import plot_format
+    from .report.jsonout import build_document, write_json
+    from .stats import combine_replicas, mean_with_error
+
+    if plot_path is not None:
+        try:
+            plot_format(plot_path)
+        except ValueError as exc:
+            raise click.BadParameter(str(exc), param_hint="--plot") from None
+    try:
+        run_spec = parse_run(run)
+    except ValueError as exc:
+        raise click.BadParameter(str(exc), param_hint="--run") from None
+    skip_t = None if skip == "auto" else _parse_time(skip, "--skip")
+
+    tables = [read_table(f, run=run_spec, units=units, timestep=timestep,
+                         progress=want_progress(_quiet(ctx))) for f in files]
+    rows: list[tuple[str, Any]] = []
+    per_column: dict[str, list] = {c: [] for c in dict.fromkeys(columns)}
+    for path, table in zip(files, tables, strict=True):
+        dt, t0, t_unit = _average_time_axis(table)
+        for name in per_column:
+            try:
+                x = table.column(name)
+            except KeyError:
+                raise InputError(
+                    f"no column {name!r}", path=path,
+                    expected="one of: " + ", ".join(table.columns),
+                    fix="pass --column with one of these names",
+                ) from None
+            col = _average_column_name(table, name)
+            _average_check_finite(table, col, x)
+            if skip_t is None:
+                skip_n: str | int | None = "auto"
+            else:
+                skip_n = int(round(skip_t / (dt if dt is not None else 1.0)))
+            try:
+                est = mean_with_error(x, dt=dt, t0=t0, name=name,
+                                      unit=_average_unit(table, col), time_unit=t_unit,
+                                      skip=skip_n)
+            except ValueError as exc:
+                raise InputError(str(exc), path=path, expected="a finite series of at least "
+                                 "16 rows after the skip",
+                                 fix="use a longer run or a smaller --skip") from None
+            est = replace(est, diagnostics={**est.diagnostics, "source": path})
+            rows.append((path, est))
+            per_column[name].append(est)
+    notes: list[str] = []
+    if replicas and len(files) > 1:
+        for name, ests in per_column.items():
+            try:
+                comb = combine_replicas(ests)
+            except ValueError as exc:
+                notes.append(f"{name}: files not combined as replicas ({exc})")
+                continue
+            comb = replace(comb, diagnostics={**comb.diagnostics, "sources": list(files)})
+            rows.append((f"replicas ({len(files)} files)", comb))
+
+    fig = None
+    if plot_path is not None:
+        from .report.plots import average_figure
+
+        singles = [(p, e) for p, e in rows if e.method != "replicas_student_t"]
+        fig = average_figure([e for _, e in singles],
+                             [f"{Path(p).name} {e.quantity}" for p, e in singles])
+    doc = None
+    if json_path is not None:
+        settings = {"columns": list(per_column), "skip": skip, "units": units,
+                    "timestep": timestep, "run": run, "replicas": replicas}
+        doc = build_document("average", inputs=[t.source for t in tables], settings=settings,
+                             results=[e for _, e in rows],
+                             warnings=[*(w for t in tables for w in t.warnings), *notes])
+    if fig is not None:
+        from .report.figures import save_figure
+
+        save_figure(fig, plot_path)
+    if doc is not None:
+        write_json(doc, json_path)
+    for w in dict.fromkeys(w for t in tables for w in t.warnings):
+        _note(ctx, f"transport: note: {w}")
+    for n in notes:
+        _note(ctx, f"transport: note: {n}")
+    if json_path != "-":
+        click.echo(_average_table_text(rows))
+
+
+# ---- diffusion ---------------------------------------------------------------------------
+
+def _diffusion_window(value: str, scale: float) -> tuple[float, float] | str:
+    """``auto`` or ``T0:T1`` (reported time unit) -> internal time units."""
+    if value == "auto":
+        return "auto"
+    try:
+        a, b = (float(v) for v in value.split(":"))
+    except ValueError:
+        raise click.BadParameter(f"expected 'auto' or T0:T1, got {value!r}",
+                                 param_hint="--fit-window") from None
+    if not 0 <= a < b:
+        raise click.BadParameter(f"expected 0 <= T0 < T1, got {value!r}",
+                                 param_hint="--fit-window")
+    return a / scale, b / scale
+
+
+@main.command()
+@click.argument("topology", type=click.Path(dir_okay=False))
+@click.argument("trajectories", nargs=-1, required=True, type=click.Path(dir_okay=False))
+@click.option("--select", default="all", show_default=True,
+              help="MDAnalysis selection of the atoms to analyse, e.g. 'resname SOL'.")
+@click.option("--group-by", "group_by",
+              type=click.Choice(["atom", "molecule", "residue", "type"]), default="atom",
+              show_default=True,
+              help="Particles and species: the selected atoms as one group, atoms by type, "
+                   "or centres of mass of residues / bonded molecules by name.")
+@click.option("--unwrap", type=click.Choice(["auto", "none", "images", "displacement"]),
+              default="auto", show_default=True,
+              help="Continuous positions from unwrapped coordinates, image flags, or "
+                   "minimum-image steps in the instantaneous box ('auto' picks in that "
+                   "order).")
+@click.option("--fit-window", default="auto", show_default=True,
+              help="MSD fit window 'auto' (local slope) or T0:T1 in ps (tau for --units lj).")
+@click.option("--skip", default="0", show_default=True,
+              help="Initial time to drop, in ps (tau).")
+@click.option("--units", default=None,
+              help="Unit convention: required for LAMMPS dumps (real, metal, lj, ...); "
+                   "'lj' keeps reduced units; otherwise it sets the unit of --timestep.")
+@click.option("--timestep", type=float, default=None,
+              help="Integration time step (engine time unit, ps by default): frame times "
+                   "are the stored step numbers times this.")
+@click.option("--frame-interval", type=float, default=None,
+              help="Time between frames (engine time unit, ps by default), overriding the "
+                   "file.")
+@click.option("--temperature", type=float, default=None,
+              help="Temperature (K, or reduced), recorded for finite-size corrections; "
+                   "default: from the velocities when present.")
+@click.option("--continue", "continuation", is_flag=True,
+              help="The trajectories are consecutive parts of one run (default: "
+                   "independent replicas).")
+@click.option("--vacf", type=click.Choice(["auto", "yes", "no"]), default="auto",
+              show_default=True,
+              help="Velocity-autocorrelation (Green–Kubo) cross-check: when velocities are "
+                   "sampled finely enough, always, or never.")
+@click.option("--remove-drift/--keep-drift", default=True, show_default=True,
+              help="Remove the centre-of-mass drift of the whole system.")
+@click.option("--scratch", type=click.Path(file_okay=False), default=None,
+              help="Folder for the scratch file used when positions exceed the memory.")
+@json_option
+@plot_option
+@click.pass_context
+def diffusion(ctx: click.Context, topology: str, trajectories: tuple[str, ...], select: str,
+              group_by: str, unwrap: str, fit_window: str, skip: str, units: str | None,
+              timestep: float | None, frame_interval: float | None,
+              temperature: float | None, continuation: bool, vacf: str, remove_drift: bool,
+              scratch: str | None, json_path: str | None, plot_path: str | None) -> None:
+    """Self-diffusion from TOPOLOGY and TRAJECTORIES (several files = replicas, or parts of
+    one run with --continue), per species, with the MSD fitted by generalized least squares
+    and the VACF as a cross-check."""
+    from ._progress import want_progress
+    from .diffusion import analyse_diffusion
+    from .io.trajectory import load_trajectory
+    from .report.figures import plot_format
+    from .report.jsonout import build_document, write_json
+    from .report.text import format_estimates
+    from .units import get_unit_system
+
+    if plot_path is not None:
+        try:
+            plot_format(plot_path)
+        except ValueError as exc:
+            raise click.BadParameter(str(exc), param_hint="--plot") from None
+    if units is not None:
+        try:
+            get_unit_system(units)
+        except ValueError as exc:
+            raise click.BadParameter(str(exc), param_hint="--units") from None
+    ts = 1.0 if units is not None and get_unit_system(units).reduced else 1e12
+    window = _diffusion_window(fit_window, ts)
+    skip_t = _parse_time(skip, "--skip") or 0.0
+    series = load_trajectory(
+        topology, list(trajectories), select=select, group_by=group_by,  # type: ignore[arg-type]
+        unwrap=unwrap, units=units, timestep=timestep,  # type: ignore[arg-type]
+        frame_interval=frame_interval, skip=skip_t / ts, temperature=temperature,
+        continuation=continuation, scratch_dir=scratch,
+        progress=want_progress(_quiet(ctx)),
+    )
+    result = analyse_diffusion(series, fit_window=window,  # type: ignore[arg-type]
+                               remove_drift=remove_drift, vacf=vacf)  # type: ignore[arg-type]
+    est = result.estimates
+    n = len(trajectories)
+    kind = ("consecutive parts of one run" if continuation else "independent replicas")
+    title = f"self-diffusion from {n} trajectory file(s)" + (f" ({kind})" if n > 1 else "")
+    # compute everything before writing anything
+    fig = None
+    if plot_path is not None:
+        from .report.diffusion_plots import diffusion_figure
+
+        fig = diffusion_figure(result.msd, result.vacf)
+    doc = None
+    if json_path is not None:
+        settings = {"topology": topology, "select": select, "group_by": group_by,
+                    "unwrap": unwrap, "unwrap_used": [s.unwrap for s in series],
+                    "fit_window": fit_window, "skip": skip, "units": series[0].units.name,
+                    "timestep": timestep, "frame_interval": frame_interval,
+                    "temperature": temperature, "continue": continuation, "vacf": vacf,
+                    "remove_drift": remove_drift}
+        doc = build_document("diffusion", inputs=[src for s in series for src in s.sources],
+                             settings=settings, results=est, warnings=result.notes)
+    if fig is not None:
+        from .report.figures import save_figure
+
+        save_figure(fig, plot_path)
+    if doc is not None:
+        write_json(doc, json_path)
+    if json_path != "-":
+        click.echo(format_estimates(est, title=title, notes=result.notes))

@@ -10,6 +10,13 @@ Angstrom), so that the demo exercises the readers, unit conversion, the estimato
 reports exactly as on real engine output. A fictional "experimental" viscosity is given for
 the comparison.
 
+A diffusion step follows: Corvane-9 molecules and a dissolved anti-wear additive, one bead
+per molecule moving as independent Brownian particles with known self-diffusion coefficients,
+written as a wrapped DCD trajectory with a PDB topology and analysed per species.
+
+Each run of the demo is one draw: a 95% interval misses the truth in one case in twenty
+(the tests check the coverage over hundreds of seeds); ``--seed`` draws another scenario.
+
 The demo builds on the library (not on the command line); ``transport demo`` calls
 :func:`run_demo`.
 """
@@ -66,7 +73,7 @@ SCENARIO = Scenario(
     temperature=373.15,
     box_length=45.0,
     timestep_fs=1.0,
-    thermo_every=10,
+    thermo_every=20,
     steps_per_replica=1_000_000,
     replicas=4,
     experiment_mpas=5.1,
@@ -110,7 +117,11 @@ def write_thermo_log(
         Rows of a short equilibration block (step, temp, press only) written first.
     """
     n = pressure_atm.shape[1]
-    opener: Callable = gzip.open if path.suffix == ".gz" else open
+    def opener(p: Path, mode: str, encoding: str):
+        if path.suffix == ".gz":
+            return gzip.open(p, mode, encoding=encoding, compresslevel=1)
+        return open(p, mode, encoding=encoding)
+
     press = pressure_atm[:3].mean(axis=0)
     lines = [
         "demo engine log (synthetic data of the transport demo scenario)",
@@ -180,7 +191,7 @@ def _generate(out: Path, scenario: Scenario, rng: np.random.Generator) -> dict[s
 def run_demo(
     out: str | os.PathLike[str],
     *,
-    seed: int = 2026,
+    seed: int = 2,
     echo: Callable[[str], None] = print,
     progress: bool = False,
 ) -> dict[str, list[Estimate]]:
@@ -249,9 +260,112 @@ def run_demo(
         dev = gk.value - sc.experiment_mpas
         echo(f"  {m.label}: Green–Kubo {gk.value:.2f} ± {gk.stderr:.2f} mPa s, "
              f"{dev:+.2f} mPa s ({dev / sc.experiment_mpas:+.0%}) from experiment")
+    results["diffusion"] = _diffusion_step(outdir, rng, echo)
     echo("")
     echo("caution: a transport coefficient is only as good as the potential and the sampling;")
     echo("thermostat coupling and the treatment of electrostatics bias it. Check against")
     echo("experiment before a design decision.")
     echo(f"figures and JSON in {outdir}/")
     return results
+
+
+@dataclass(frozen=True)
+class DiffusingSpecies:
+    """One species of the diffusion part of the scenario, with its true D."""
+
+    resname: str
+    label: str
+    count: int
+    mass_amu: float
+    diffusion: float  # true self-diffusion coefficient, 1e-9 m^2/s
+
+
+#: The diffusion part of the scenario: Corvane-9 with a dissolved anti-wear additive,
+#: coarse-grained to one bead per molecule moving as independent Brownian particles.
+DIFFUSION_SPECIES = (
+    DiffusingSpecies("C9B", "Corvane-9 base oil", 200, 250.0, 0.35),
+    DiffusingSpecies("AWX", "anti-wear additive", 60, 400.0, 0.90),
+)
+
+
+def _diffusion_step(outdir: Path, rng: np.random.Generator,
+                    echo: Callable[[str], None]) -> list[Estimate]:
+    """Self-diffusion of the scenario's two species from a synthetic trajectory.
+
+    Writes ``diffusion_topology.pdb`` and ``diffusion_trajectory.dcd`` (Brownian beads with
+    known D in the periodic box, coordinates wrapped as an engine writes them), reads them
+    back through :func:`transport.io.trajectory.load_trajectory`, estimates D per species
+    and prints the estimates beside the truth. Returns the estimates.
+    """
+    import warnings
+
+    import MDAnalysis as mda
+
+    from .diffusion import analyse_diffusion
+    from .io.trajectory import load_trajectory
+    from .report.diffusion_plots import diffusion_figure
+    from .report.figures import save_figure
+    from .report.jsonout import build_document, write_json
+    from .report.text import format_estimates
+    from .synthetic import brownian_positions
+
+    sc = SCENARIO
+    box = sc.box_length  # Angstrom
+    dt_ps, n_frames = 5.0, 1000
+    parts = []
+    for sp in DIFFUSION_SPECIES:
+        d_a2ps = sp.diffusion * 0.1  # 1e-9 m^2/s = 0.1 Angstrom^2/ps
+        parts.append(brownian_positions(n_frames, sp.count, dt_ps, d_a2ps, box, rng))
+    x = np.concatenate(parts, axis=1).astype(np.float32)
+    resnames = [sp.resname for sp in DIFFUSION_SPECIES for _ in range(sp.count)]
+    masses = np.concatenate([np.full(sp.count, sp.mass_amu) for sp in DIFFUSION_SPECIES])
+    n = x.shape[1]
+    top = outdir / "diffusion_topology.pdb"
+    traj = outdir / "diffusion_trajectory.dcd"
+    dims = [box, box, box, 90.0, 90.0, 90.0]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        u = mda.Universe.empty(n, n_residues=n, atom_resindex=np.arange(n), trajectory=True)
+        u.add_TopologyAttr("names", ["CG"] * n)
+        u.add_TopologyAttr("types", ["CG"] * n)
+        u.add_TopologyAttr("resnames", resnames)
+        u.add_TopologyAttr("resids", np.arange(1, n + 1))
+        u.add_TopologyAttr("masses", masses)
+        u.dimensions = dims
+        u.atoms.positions = x[0]
+        u.atoms.write(str(top))
+        with mda.Writer(str(traj), n, dt=dt_ps) as w:
+            for k in range(n_frames):
+                u.atoms.positions = x[k]
+                u.dimensions = dims
+                w.write(u.atoms)
+    series = load_trajectory(top, traj, group_by="residue", temperature=sc.temperature)
+    res = analyse_diffusion(series)
+    # removing the centre-of-mass drift of independent particles changes the truth slightly:
+    # var(x_i - X) = var(x_i)(1 - 2 m_i/M) + sum_j m_j^2 var(x_j) / M^2
+    m_tot = float(masses.sum())
+    common = sum(sp.count * sp.mass_amu**2 * sp.diffusion for sp in DIFFUSION_SPECIES)
+    truth = {sp.resname: sp.diffusion * (1 - 2 * sp.mass_amu / m_tot) + common / m_tot**2
+             for sp in DIFFUSION_SPECIES}
+    echo("")
+    echo(f"self-diffusion: {n} molecules of two species in the {box:g} Angstrom box, "
+         f"{n_frames} frames {dt_ps:g} ps apart (synthetic Brownian motion with known D)")
+    echo(format_estimates(res.estimates, title="MSD fitted by generalized least squares",
+                          notes=res.notes))
+    for e in res.msd:
+        sp = next(s for s in DIFFUSION_SPECIES if s.resname == e.group)
+        hit = e.interval[0] <= truth[sp.resname] <= e.interval[1]
+        echo(f"  {sp.label} ({sp.resname}): {e.value:.3f} ± {e.stderr:.3f} vs truth "
+             f"{truth[sp.resname]:.3f} {e.unit} -> "
+             f"{'inside' if hit else 'OUTSIDE'} the 95% interval")
+    echo("  (values for the periodic box; the Yeh–Hummer finite-size correction needs the "
+         "viscosity)")
+    save_figure(diffusion_figure(res.msd, res.vacf), outdir / "diffusion.png")
+    doc = build_document(
+        "demo", inputs=[src for s in series for src in s.sources],
+        settings={"group_by": "residue", "temperature": sc.temperature},
+        results=res.estimates, warnings=res.notes,
+        extra={"truth": {"self_diffusion": truth, "unit": "1e-9 m^2/s"}},
+    )
+    write_json(doc, outdir / "diffusion.json")
+    return list(res.estimates)

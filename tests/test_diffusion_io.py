@@ -1,0 +1,406 @@
+"""Trajectory reading for self-diffusion, against MDAnalysis and files with known content.
+
+References used below:
+* MDAnalysis's own MSD class, ``MDAnalysis.analysis.msd.EinsteinMSD`` with ``fft=False``
+  (direct windowed average over all origins), on files shipped with ``MDAnalysisTests``.
+* MDAnalysis's own unwrapping by LAMMPS image flags (``unwrap_images=True``, x + n L).
+* Brownian motion with known D written to DCD files (MSD = 6 D t).
+"""
+
+from __future__ import annotations
+
+import gzip
+import json
+import warnings
+from pathlib import Path
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+
+from transport.cli import main
+from transport.diffusion import analyse_diffusion, species_msd
+from transport.errors import InputError
+from transport.io.trajectory import load_trajectory
+from transport.synthetic import brownian_positions
+
+mda = pytest.importorskip("MDAnalysis")
+datafiles = pytest.importorskip("MDAnalysisTests.datafiles")
+
+A2_PER_M2 = 1e20  # Angstrom^2 per m^2
+
+
+def _quiet_mda():
+    return warnings.catch_warnings()
+
+
+def _write_dcd(folder: Path, x: np.ndarray, box: float, dt_ps: float, *,
+               resnames=None, name: str = "traj.dcd", topology: str = "top.pdb",
+               bonds=None) -> tuple[Path, Path]:
+    """Write a PDB topology and a DCD trajectory (Angstrom) with MDAnalysis."""
+    n_frames, n, _ = x.shape
+    resnames = list(resnames) if resnames is not None else ["LIQ"] * n
+    with _quiet_mda():
+        warnings.simplefilter("ignore")
+        u = mda.Universe.empty(n, n_residues=n, atom_resindex=np.arange(n), trajectory=True)
+        u.add_TopologyAttr("names", ["C"] * n)
+        u.add_TopologyAttr("types", [r[0] for r in resnames])
+        u.add_TopologyAttr("resnames", resnames)
+        u.add_TopologyAttr("resids", np.arange(1, n + 1))
+        u.add_TopologyAttr("masses", np.full(n, 12.0))
+        if bonds is not None:
+            u.add_TopologyAttr("bonds", bonds)
+        dims = [box, box, box, 90.0, 90.0, 90.0]
+        u.dimensions = dims
+        u.atoms.positions = x[0]
+        top = folder / topology
+        u.atoms.write(str(top))
+        traj = folder / name
+        with mda.Writer(str(traj), n, dt=dt_ps) as w:
+            for k in range(n_frames):
+                u.atoms.positions = x[k]
+                u.dimensions = dims
+                w.write(u.atoms)
+    return top, traj
+
+
+def _write_dump(path: Path, x: np.ndarray, box: float, steps: np.ndarray, columns: str,
+                images: np.ndarray | None = None, v: np.ndarray | None = None) -> Path:
+    """A LAMMPS ``dump custom`` text file (gzip if the name ends in .gz)."""
+    n_frames, n, _ = x.shape
+    lines = []
+    for k in range(n_frames):
+        lines += ["ITEM: TIMESTEP", str(int(steps[k])), "ITEM: NUMBER OF ATOMS", str(n),
+                  "ITEM: BOX BOUNDS pp pp pp"] + [f"0.0 {box:.10g}"] * 3
+        lines.append(f"ITEM: ATOMS {columns}")
+        table = np.column_stack([np.arange(1, n + 1), np.ones(n), x[k]]
+                                + ([images[k]] if images is not None else [])
+                                + ([v[k]] if v is not None else []))
+        fmt = ["%d", "%d", "%.6f", "%.6f", "%.6f"] + (["%d"] * 3 if images is not None
+                                                      else []) + (
+            ["%.6f"] * 3 if v is not None else [])
+        lines += [" ".join(f % val for f, val in zip(fmt, row, strict=True)) for row in table]
+    text = "\n".join(lines) + "\n"
+    if path.suffix == ".gz":
+        with gzip.open(path, "wt") as fh:
+            fh.write(text)
+    else:
+        path.write_text(text)
+    return path
+
+
+def _write_atomic_data(path: Path, n: int, box: float) -> Path:
+    """A LAMMPS data file, atom style atomic (``id type x y z``)."""
+    rows = "\n".join(f"{i + 1} 1 0.0 0.0 0.0" for i in range(n))
+    path.write_text(
+        f"test data\n\n{n} atoms\n1 atom types\n\n0.0 {box} xlo xhi\n0.0 {box} ylo yhi\n"
+        f"0.0 {box} zlo zhi\n\nMasses\n\n1 1.0\n\nAtoms # atomic\n\n{rows}\n")
+    return path
+
+
+# ---------------------------------------------------------------------------------------
+# against MDAnalysis
+# ---------------------------------------------------------------------------------------
+
+
+def test_msd_matches_mdanalysis_einstein_msd_on_real_trajectory():
+    # adenylate kinase test trajectory (PSF + DCD, 3341 atoms x 98 frames, no box):
+    # raw coordinates (unwrap none, no drift removal) vs EinsteinMSD(fft=False).
+    from MDAnalysis.analysis.msd import EinsteinMSD
+
+    s = load_trajectory(datafiles.PSF, datafiles.DCD, unwrap="none")[0]
+    assert s.box is None and s.unwrap == "none" and s.n_frames == 98
+    ours = species_msd(s, np.arange(s.n_particles), remove_drift=False) * A2_PER_M2
+    with _quiet_mda():
+        warnings.simplefilter("ignore")
+        u = mda.Universe(datafiles.PSF, datafiles.DCD)
+        ref = EinsteinMSD(u, select="all", msd_type="xyz", fft=False).run().results.timeseries
+    # both read the same float32 coordinates; ours stores them in metres as float32 (one
+    # more rounding, 6e-8 relative of coordinates ~30 A against displacements ~1 A)
+    np.testing.assert_allclose(ours[1:], ref[1:], rtol=1e-5)
+    assert ours[0] == 0.0
+
+
+def test_image_flags_match_mdanalysis_unwrapping():
+    # LAMMPS dump with image flags (MDAnalysisTests image_vf): our image-flag unwrapping
+    # against MDAnalysis's unwrap_images=True, then EinsteinMSD(fft=False) on both.
+    from MDAnalysis.analysis.msd import EinsteinMSD
+
+    s = load_trajectory(datafiles.LAMMPS_image_vf, datafiles.LAMMPSDUMP_image_vf,
+                        units="real", timestep=1.0)[0]
+    assert s.unwrap == "image flags"
+    with _quiet_mda():
+        warnings.simplefilter("ignore")
+        u = mda.Universe(datafiles.LAMMPS_image_vf, datafiles.LAMMPSDUMP_image_vf,
+                         format="LAMMPSDUMP", unwrap_images=True)
+        ref_pos = np.array([ts.positions.copy() for ts in u.trajectory])
+        ref = EinsteinMSD(u, select="all", msd_type="xyz", fft=False).run().results.timeseries
+    np.testing.assert_allclose(s.positions * 1e10, ref_pos, rtol=0, atol=2e-5)
+    ours = species_msd(s, np.arange(s.n_particles), remove_drift=False) * A2_PER_M2
+    np.testing.assert_allclose(ours[1:], ref[1:], rtol=1e-5)
+    # real units: steps 0, 1000, ... times 1 fs
+    assert s.dt == pytest.approx(1000 * 1e-15)
+    assert s.velocities is not None  # the dump has vx vy vz
+
+
+def test_group_by_molecule_uses_bonds():
+    # the image_vf data file has one bond: atoms 1-2 form one molecule, the other five are
+    # single atoms; centres of mass are mass weighted (all masses 1 here)
+    s = load_trajectory(datafiles.LAMMPS_image_vf, datafiles.LAMMPSDUMP_image_vf,
+                        units="real", timestep=1.0, group_by="molecule")[0]
+    assert s.n_particles == 6
+    assert sorted(s.atoms_per_particle.tolist()) == [1, 1, 1, 1, 1, 2]
+    a = load_trajectory(datafiles.LAMMPS_image_vf, datafiles.LAMMPSDUMP_image_vf,
+                        units="real", timestep=1.0)[0]
+    dimer = int(np.flatnonzero(s.atoms_per_particle == 2)[0])
+    np.testing.assert_allclose(s.positions[:, dimer], a.positions[:, :2].mean(axis=1),
+                               rtol=1e-6)
+    t = load_trajectory(datafiles.LAMMPS_image_vf, datafiles.LAMMPSDUMP_image_vf,
+                        units="real", timestep=1.0, group_by="type")[0]
+    assert t.species_names == ("type 1", "type 2")
+
+
+# ---------------------------------------------------------------------------------------
+# files with known content
+# ---------------------------------------------------------------------------------------
+
+D_A2PS = 0.1  # Angstrom^2/ps = 1e-9 m^2/s
+
+
+def test_dcd_brownian_units_species_and_truth(tmp_path):
+    rng = np.random.default_rng(21)
+    n = 60
+    x = brownian_positions(500, n, 2.0, D_A2PS, 25.0, rng)
+    names = ["OIL"] * 40 + ["ADD"] * 20
+    top, traj = _write_dcd(tmp_path, x, 25.0, 2.0, resnames=names)
+    s = load_trajectory(top, traj, group_by="residue")[0]
+    assert s.dt == pytest.approx(2e-12, rel=1e-6)  # DCD stores the step in AKMA units
+    np.testing.assert_allclose(s.box[0], 25e-10, rtol=1e-6)
+    assert s.species_names == ("OIL", "ADD")
+    assert s.masses[0] == pytest.approx(12.0 * 1.66053906660e-27)
+    assert s.positions.dtype == np.float32
+    res = analyse_diffusion(s)
+    for e in res.msd:
+        # drift removal leaves D (1 - 1/N) for N independent Brownian particles
+        truth = 1.0 * (1 - 1 / n)
+        assert e.unit == "1e-9 m^2/s"
+        assert abs(e.value - truth) < 4 * e.stderr, (e.group, e.value, e.stderr)
+        assert e.diagnostics["box_lengths"] == pytest.approx([2.5] * 3, rel=1e-6)  # nm
+    assert [e.group for e in res.msd] == ["OIL", "ADD"]
+
+
+def test_memory_limit_spills_to_scratch_file_with_same_result(tmp_path):
+    rng = np.random.default_rng(22)
+    x = brownian_positions(200, 30, 1.0, D_A2PS, 20.0, rng)
+    top, traj = _write_dcd(tmp_path, x, 20.0, 1.0)
+    scratch = tmp_path / "scratch"
+    scratch.mkdir()
+    mem = load_trajectory(top, traj)[0]
+    spilled = load_trajectory(top, traj, memory_limit=0, scratch_dir=scratch)[0]
+    assert isinstance(spilled.positions.base, np.memmap) or isinstance(
+        spilled.positions, np.memmap)
+    assert list(scratch.iterdir()) == []  # the scratch file has no name left on disk
+    np.testing.assert_array_equal(np.asarray(spilled.positions), mem.positions)
+    assert any("scratch file" in w for w in spilled.warnings)
+
+
+def test_continued_parts_equal_the_whole_run(tmp_path):
+    rng = np.random.default_rng(23)
+    x = brownian_positions(300, 25, 1.0, D_A2PS, 20.0, rng)
+    top, whole = _write_dcd(tmp_path, x, 20.0, 1.0, name="whole.dcd")
+    _, p1 = _write_dcd(tmp_path, x[:151], 20.0, 1.0, name="p1.dcd", topology="t1.pdb")
+    # the second part repeats the boundary frame 150, as a restarted run writes it; its
+    # time stamps restart at 0 in the file, so the frame interval is given explicitly
+    _, p2 = _write_dcd(tmp_path, x[150:], 20.0, 1.0, name="p2.dcd", topology="t2.pdb")
+    a = load_trajectory(top, whole, frame_interval=1.0)[0]
+    b = load_trajectory(top, [p1, p2], continuation=True, frame_interval=1.0)[0]
+    assert b.n_frames == 300
+    assert any("repeated at the boundary" in w for w in b.warnings)
+    np.testing.assert_allclose(b.positions, a.positions, rtol=0, atol=1e-15)
+    reps = load_trajectory(top, [p1, p2], frame_interval=1.0)
+    assert [r.n_frames for r in reps] == [151, 150]
+
+
+@pytest.mark.parametrize("kind", ["images", "unwrapped", "wrapped"])
+def test_lammps_dump_columns_give_the_same_positions(tmp_path, kind):
+    # one Brownian trajectory written three ways: x y z ix iy iz, xu yu zu, and wrapped
+    # x y z only; reduced units, frame times = step numbers x --timestep
+    rng = np.random.default_rng(24)
+    L, n = 8.0, 12
+    u = brownian_positions(60, n, 0.25, 0.03, L, rng, wrap=False)
+    n_img = np.floor(u / L)
+    w = u - n_img * L
+    steps = np.arange(60) * 50
+    if kind == "images":
+        path = _write_dump(tmp_path / "d.lammpstrj.gz", w, L, steps, "id type x y z ix iy iz",
+                           images=n_img)
+    elif kind == "unwrapped":
+        path = _write_dump(tmp_path / "d.lammpstrj", u, L, steps, "id type xu yu zu")
+    else:
+        path = _write_dump(tmp_path / "d.lammpstrj", w, L, steps, "id type x y z")
+    data = _write_atomic_data(tmp_path / "lj.data", n, L)
+    s = load_trajectory(data, path, units="lj", timestep=0.005)[0]
+    assert s.dt == pytest.approx(0.25)
+    assert s.units.reduced
+    expected = {"images": "image flags", "unwrapped": "unwrapped coordinates",
+                "wrapped": "displacement"}[kind]
+    assert s.unwrap.startswith(expected)
+    ref = u - (n_img[0] * L if kind == "wrapped" else 0.0)
+    # 6 decimals in the file
+    np.testing.assert_allclose(s.positions, ref, atol=2e-6)
+
+
+def test_lammps_dump_needs_units_and_time(tmp_path):
+    rng = np.random.default_rng(25)
+    u = brownian_positions(10, 4, 1.0, 0.01, 8.0, rng)
+    path = _write_dump(tmp_path / "d.lammpstrj", u, 8.0, np.arange(10) * 10, "id type x y z")
+    data = _write_atomic_data(tmp_path / "lj.data", 4, 8.0)
+    with pytest.raises(InputError, match="do not state their units"):
+        load_trajectory(data, path)
+    with pytest.raises(InputError, match="time between frames is not known"):
+        load_trajectory(data, path, units="lj")
+
+
+# ---------------------------------------------------------------------------------------
+# the command line
+# ---------------------------------------------------------------------------------------
+
+
+def _files(folder: Path) -> set[str]:
+    return {str(p.relative_to(folder)) for p in folder.rglob("*")}
+
+
+def test_cli_diffusion_writes_json_and_plot(tmp_path):
+    rng = np.random.default_rng(31)
+    x = brownian_positions(400, 40, 2.0, D_A2PS, 25.0, rng)
+    top, traj = _write_dcd(tmp_path, x, 25.0, 2.0, resnames=["OIL"] * 25 + ["ADD"] * 15)
+    out = tmp_path / "d.json"
+    fig = tmp_path / "d.png"
+    r = CliRunner().invoke(main, ["-q", "diffusion", str(top), str(traj), "--group-by",
+                                  "residue", "--json", str(out), "--plot", str(fig)])
+    assert r.exit_code == 0, r.output
+    assert "msd_gls" in r.output and "OIL" in r.output and "ADD" in r.output
+    doc = json.loads(out.read_text())
+    assert doc["command"] == "diffusion"
+    assert [x["group"] for x in doc["results"]] == ["OIL", "ADD"]
+    for res in doc["results"]:
+        assert res["quantity"] == "self_diffusion" and res["unit"] == "1e-9 m^2/s"
+        assert res["diagnostics"]["drift_removed"] is True
+        assert res["diagnostics"]["n_particles"] in (25, 15)
+        lo, hi = res["interval95"]
+        assert lo < res["value"] < hi
+    assert doc["settings"]["unwrap_used"][0].startswith("displacement")
+    assert fig.stat().st_size > 10_000
+
+
+def test_cli_fit_window_in_ps(tmp_path):
+    rng = np.random.default_rng(32)
+    x = brownian_positions(300, 30, 2.0, D_A2PS, 25.0, rng)
+    top, traj = _write_dcd(tmp_path, x, 25.0, 2.0)
+    out = tmp_path / "d.json"
+    r = CliRunner().invoke(main, ["-q", "diffusion", str(top), str(traj), "--fit-window",
+                                  "10:100", "--json", str(out)])
+    assert r.exit_code == 0, r.output
+    assert json.loads(out.read_text())["results"][0]["window"] == pytest.approx([10, 100],
+                                                                               rel=1e-6)
+
+
+def _bad_runs(tmp_path: Path) -> dict[str, list[str]]:
+    rng = np.random.default_rng(33)
+    x = brownian_positions(100, 20, 2.0, D_A2PS, 25.0, rng)
+    top, traj = _write_dcd(tmp_path, x, 25.0, 2.0)
+    other_top, _ = _write_dcd(tmp_path, x[:, :10], 25.0, 2.0, name="ten.dcd",
+                              topology="ten.pdb")
+    garbage = tmp_path / "garbage.pdb"
+    garbage.write_bytes(b"\x00\x01 not a topology \xff" * 10)
+    # frames far apart: rms step 25 A / 4 per coordinate
+    far = brownian_positions(50, 20, 1.0, (25.0 / 4) ** 2 / 2, 25.0, rng)
+    _, far_traj = _write_dcd(tmp_path, far, 25.0, 1.0, name="far.dcd", topology="far.pdb")
+    return {
+        "missing topology": [str(tmp_path / "nope.pdb"), str(traj)],
+        "missing trajectory": [str(top), str(tmp_path / "nope.dcd")],
+        "unreadable topology": [str(garbage), str(traj)],
+        "mismatched atom counts": [str(other_top), str(traj)],
+        "frames too far apart": [str(top), str(far_traj)],
+        "empty selection": [str(top), str(traj), "--select", "name XYZ"],
+        "molecules without bonds": [str(top), str(traj), "--group-by", "molecule"],
+    }
+
+
+@pytest.mark.parametrize("case", ["missing topology", "missing trajectory",
+                                  "unreadable topology", "mismatched atom counts",
+                                  "frames too far apart", "empty selection",
+                                  "molecules without bonds"])
+def test_cli_bad_input_exit_2_one_line_nothing_written(tmp_path, case):
+    args = _bad_runs(tmp_path)[case]
+    before = _files(tmp_path)
+    out, fig = tmp_path / "r.json", tmp_path / "r.png"
+    r = CliRunner().invoke(main, ["-q", "diffusion", *args, "--json", str(out), "--plot",
+                                  str(fig)])
+    assert r.exit_code == 2, r.output
+    lines = [ln for ln in r.output.splitlines() if ln.strip()]
+    assert len(lines) == 1, r.output
+    assert lines[0].startswith("transport: error:")
+    assert "Traceback" not in r.output
+    assert _files(tmp_path) == before  # nothing written
+    expect = {"missing topology": "not found", "missing trajectory": "not found",
+              "unreadable topology": "cannot read the topology",
+              "mismatched atom counts": "atoms", "frames too far apart": "too far apart",
+              "empty selection": "matches no atoms",
+              "molecules without bonds": "needs bonds"}[case]
+    assert expect in lines[0]
+
+
+def test_cli_bad_option_values(tmp_path):
+    rng = np.random.default_rng(34)
+    x = brownian_positions(50, 10, 2.0, D_A2PS, 25.0, rng)
+    top, traj = _write_dcd(tmp_path, x, 25.0, 2.0)
+    for extra in (["--fit-window", "a:b"], ["--fit-window", "5:1"], ["--units", "furlong"],
+                  ["--plot", str(tmp_path / "x.gif")]):
+        r = CliRunner().invoke(main, ["-q", "diffusion", str(top), str(traj), *extra])
+        assert r.exit_code == 2, (extra, r.output)
+        assert "Traceback" not in r.output
+
+
+def test_triclinic_box_refused_for_unwrapping_but_readable_unwrapped():
+    # MDAnalysisTests: 125 TIP3P waters in a triclinic box (PSF + DCD)
+    with pytest.raises(InputError, match="triclinic"):
+        load_trajectory(datafiles.PSF_TRICLINIC, datafiles.DCD_TRICLINIC)
+    s = load_trajectory(datafiles.PSF_TRICLINIC, datafiles.DCD_TRICLINIC, unwrap="none",
+                        group_by="residue")[0]
+    assert s.n_particles == 125 and s.species_names == ("TIP3",)
+    assert s.atoms_per_particle.tolist() == [3] * 125
+
+
+def test_skip_drops_the_start_and_single_residue_is_refused(tmp_path):
+    rng = np.random.default_rng(26)
+    x = brownian_positions(100, 8, 1.0, 0.01, 8.0, rng)
+    top, traj = _write_dcd(tmp_path, x, 8.0, 1.0)
+    full = load_trajectory(top, traj)[0]
+    part = load_trajectory(top, traj, skip=30e-12)[0]  # 30 ps
+    assert part.n_frames == 70
+    assert part.t0 == pytest.approx(full.t0 + 30e-12, rel=1e-6)
+    np.testing.assert_array_equal(part.positions, full.positions[30:])
+    # a LAMMPS atomic data file has a single residue: centre of mass of everything
+    data = _write_atomic_data(tmp_path / "lj.data", 8, 8.0)
+    dump = _write_dump(tmp_path / "d.lammpstrj", x, 8.0, np.arange(100), "id type x y z")
+    with pytest.raises(InputError, match="one particle of all 8"):
+        load_trajectory(data, dump, units="lj", timestep=1.0, group_by="residue")
+
+
+def test_cli_replicas_and_continue(tmp_path):
+    rng = np.random.default_rng(35)
+    x = brownian_positions(400, 30, 2.0, D_A2PS, 25.0, rng)
+    top, p1 = _write_dcd(tmp_path, x[:200], 25.0, 2.0, name="a.dcd")
+    _, p2 = _write_dcd(tmp_path, x[200:], 25.0, 2.0, name="b.dcd", topology="b.pdb")
+    for extra, n_frames in (([], [200, 200]), (["--continue", "--frame-interval", "2"],
+                                               [400])):
+        out = tmp_path / "r.json"
+        r = CliRunner().invoke(main, ["-q", "diffusion", str(top), str(p1), str(p2),
+                                      "--json", str(out), *extra])
+        assert r.exit_code == 0, r.output
+        res = json.loads(out.read_text())["results"][0]
+        assert res["diagnostics"]["frames"] == n_frames
+        assert res["diagnostics"]["n_particles"] == 30 * len(n_frames)
+        # independent Brownian particles, drift removed: truth D (1 - 1/30) = 0.967
+        assert abs(res["value"] - 0.967) < 4 * res["stderr"]

@@ -1,0 +1,239 @@
+"""Opening input files: existence checks, transparent decompression, format sniffing, hashing."""
+
+from __future__ import annotations
+
+import bz2
+import gzip
+import hashlib
+import lzma
+import os
+import re
+import threading
+from dataclasses import dataclass
+from pathlib import Path
+from typing import IO
+
+from ..errors import InputError
+
+__all__ = ["FileHash", "Opened", "check_path", "open_bytes", "sniff"]
+
+_MAGIC = {
+    "gzip": b"\x1f\x8b",
+    "bzip2": b"BZh",
+    "xz": b"\xfd7zXZ\x00",
+}
+_SUFFIX_COMPRESSION = {".gz": "gzip", ".bz2": "bzip2", ".xz": "xz"}
+_EDR_MAGIC = b"\xff\xff\x26\xfd"  # -55555 as a big-endian (XDR) int: the frame magic
+_NPY_MAGIC = b"\x93NUMPY"
+_ZIP_MAGIC = b"PK\x03\x04"
+
+#: Formats :func:`sniff` can return.
+FORMATS = ("lammps-log", "table", "npy", "npz", "edr")
+
+_LOG_MARKERS = re.compile(
+    rb"^(?:LAMMPS \(|Loop time of |Per MPI rank memory|\s*units\s+\w+\s*$|thermo_style\s|"
+    rb"thermo\s+\d|Setting up (?:Verlet|Respa|cg|sd|fire)|Step\s+\S+.*\n\s*-?\d)",
+    re.MULTILINE,
+)
+
+
+def check_path(path: str | os.PathLike[str]) -> Path:
+    """Return `path` as a Path after checking that it is a readable, non-empty file."""
+    p = Path(path)
+    if not p.exists():
+        raise InputError("file not found", path=str(p), fix="check the path and the spelling")
+    if p.is_dir():
+        raise InputError("is a directory, not a file", path=str(p),
+                         fix="give the file inside the directory")
+    try:
+        size = p.stat().st_size
+        with open(p, "rb"):
+            pass
+    except OSError as exc:
+        raise InputError(f"cannot be read ({exc.strerror})", path=str(p),
+                         fix="check the file permissions") from None
+    if size == 0:
+        raise InputError("file is empty", path=str(p),
+                         expected="a thermo log, a table with a header, .npy/.npz or .edr",
+                         fix="check that the run wrote its output to this file")
+    return p
+
+
+def compression_of(path: Path) -> str | None:
+    """The compression of `path` from its first bytes (suffix as a fallback), or None."""
+    with open(path, "rb") as fh:
+        head = fh.read(8)
+    for name, magic in _MAGIC.items():
+        if head.startswith(magic):
+            return name
+    return None
+
+
+class _Counting:
+    """File wrapper that counts bytes read from the disk (for progress bars)."""
+
+    def __init__(self, fh: IO[bytes]) -> None:
+        self._fh = fh
+        self.bytes_read = 0
+
+    def read(self, n: int = -1) -> bytes:
+        data = self._fh.read(n)
+        self.bytes_read += len(data)
+        return data
+
+    def readinto(self, b: bytearray | memoryview) -> int:
+        n = self._fh.readinto(b)
+        self.bytes_read += n or 0
+        return n
+
+    def readable(self) -> bool:
+        return True
+
+    def close(self) -> None:
+        self._fh.close()
+
+    @property
+    def closed(self) -> bool:
+        return self._fh.closed
+
+    def seekable(self) -> bool:
+        return False
+
+
+@dataclass
+class Opened:
+    """An opened input: a binary stream of the decompressed bytes."""
+
+    path: Path
+    stream: IO[bytes]
+    raw: _Counting
+    compression: str | None
+    size: int
+
+    def close(self) -> None:
+        self.stream.close()
+        self.raw.close()
+
+    def __enter__(self) -> Opened:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+
+def open_bytes(path: Path) -> Opened:
+    """Open `path` for reading its (decompressed) bytes."""
+    comp = compression_of(path)
+    raw = _Counting(open(path, "rb"))  # closed by Opened.close
+    stream: IO[bytes]
+    if comp == "gzip":
+        stream = gzip.GzipFile(fileobj=raw, mode="rb")  # type: ignore[arg-type]
+    elif comp == "bzip2":
+        stream = bz2.BZ2File(raw, mode="rb")  # type: ignore[arg-type]
+    elif comp == "xz":
+        stream = lzma.LZMAFile(raw, mode="rb")  # type: ignore[arg-type]
+    else:
+        stream = raw  # type: ignore[assignment]
+    return Opened(path, stream, raw, comp, path.stat().st_size)
+
+
+def read_head(path: Path, n: int = 1 << 16) -> tuple[bytes, str | None]:
+    """The first `n` decompressed bytes and the compression name."""
+    with open_bytes(path) as op:
+        try:
+            head = op.stream.read(n)
+        except (OSError, EOFError, lzma.LZMAError) as exc:
+            raise InputError(
+                f"cannot be decompressed as {op.compression} ({exc})", path=str(path),
+                fix="check that the file was copied completely",
+            ) from None
+        return head, op.compression
+
+
+def _stem(path: Path) -> str:
+    name = path.name.lower()
+    for suf in _SUFFIX_COMPRESSION:
+        if name.endswith(suf):
+            return name[: -len(suf)]
+    return name
+
+
+def sniff(path: Path) -> tuple[str, str | None]:
+    """Decide the format of `path` from its content and its suffix.
+
+    Returns
+    -------
+    format : str
+        One of ``lammps-log``, ``table``, ``npy``, ``npz``, ``edr``.
+    compression : str or None
+        ``gzip``, ``bzip2``, ``xz`` or None.
+    """
+    head, comp = read_head(path)
+    name = _stem(path)
+    if not head:
+        raise InputError("file is empty" + (f" after {comp} decompression" if comp else ""),
+                         path=str(path),
+                         fix="check that the run wrote its output to this file")
+    if head.startswith(_NPY_MAGIC):
+        return "npy", comp
+    if head.startswith(_ZIP_MAGIC):
+        return "npz", comp
+    if head.startswith(_EDR_MAGIC) or name.endswith(".edr"):
+        return "edr", comp
+    sample = head[:8192]
+    if b"\x00" in sample or _binary_fraction(sample) > 0.05:
+        raise InputError(
+            "is not a text file and not a known binary format",
+            path=str(path),
+            expected="a thermo log, a text/CSV table with a header, .npy, .npz or .edr",
+            fix="give the engine's log or an exported table",
+        )
+    if _LOG_MARKERS.search(head):
+        return "lammps-log", comp
+    if name.startswith("log.") or name.endswith((".log", ".lammps")):
+        return "lammps-log", comp
+    return "table", comp
+
+
+def _binary_fraction(sample: bytes) -> float:
+    if not sample:
+        return 0.0
+    text_bytes = bytes(range(32, 127)) + b"\n\r\t\f\b"
+    non_text = sample.translate(None, text_bytes)
+    # UTF-8 multibyte characters (units, names) are text too: count only control bytes.
+    control = sum(1 for c in non_text if c < 32 or c == 127)
+    return control / len(sample)
+
+
+class FileHash:
+    """SHA-256 of a file computed in a background thread (hashlib releases the GIL)."""
+
+    def __init__(self, path: Path, *, background: bool = True) -> None:
+        self._digest: str | None = None
+        self._error: BaseException | None = None
+        self._path = path
+        self._thread: threading.Thread | None = None
+        if background:
+            self._thread = threading.Thread(target=self._run, daemon=True)
+            self._thread.start()
+        else:
+            self._run()
+
+    def _run(self) -> None:
+        try:
+            h = hashlib.sha256()
+            with open(self._path, "rb") as fh:
+                while True:
+                    block = fh.read(1 << 22)
+                    if not block:
+                        break
+                    h.update(block)
+            self._digest = h.hexdigest()
+        except OSError as exc:  # reported as "no digest": the read itself reports errors
+            self._error = exc
+
+    def result(self) -> str | None:
+        """The hex digest (waits for the thread), or None if the file could not be read."""
+        if self._thread is not None:
+            self._thread.join()
+        return self._digest

@@ -1,0 +1,247 @@
+"""Conversion of a read table into a :class:`~transport.series.StressSeries`."""
+
+from __future__ import annotations
+
+from dataclasses import replace
+from typing import TYPE_CHECKING
+
+import numpy as np
+
+from ..errors import InputError
+from ..series import StressSeries
+from ._columns import TENSOR_ORDER
+
+if TYPE_CHECKING:
+    from . import Table
+
+__all__ = ["stress_from_table"]
+
+_CHUNK = 1 << 20  # rows per step when checking spacing (bounded temporary memory)
+
+
+def _fix_for_missing(fmt: str) -> str:
+    if fmt == "lammps-log":
+        return ("add pxx pyy pzz pxy pxz pyz to 'thermo_style custom' (or define 'compute P "
+                "all pressure thermo_temp' and print c_P[1] ... c_P[6])")
+    if fmt == "edr":
+        return "write the pressure tensor to the energy file (terms Pres-XX ... Pres-ZZ)"
+    return "name the columns pxx pyy pzz pxy pxz pyz (P_xy, Pres-XY ... are recognised)"
+
+
+def _uniform(axis: np.ndarray, *, exact: bool) -> tuple[float, int | None]:
+    """Spacing of `axis` and the first row where it breaks (None if evenly spaced).
+
+    The interval is the median of the first thousand spacings (robust to one gap). Steps
+    are integers and compared exactly. Times are printed with finite precision (7 or 8
+    significant digits in engine logs; energy files may store single precision), so a
+    spacing is accepted within 1e-6 of the interval plus 5e-7 of the largest time, and the
+    interval reported is the mean over the whole series.
+    """
+    n = axis.shape[0]
+    head = np.diff(axis[: min(n, 1001)])
+    stride = float(np.median(head))
+    big = float(np.max(np.abs(axis[[0, -1]])))
+    tol = 0.0 if exact else 1e-6 * abs(stride) + 5e-7 * big
+    for lo in range(0, n - 1, _CHUNK):
+        hi = min(lo + _CHUNK, n - 1)
+        d = axis[lo + 1: hi + 1] - axis[lo:hi]
+        bad = np.flatnonzero(np.abs(d - stride) > tol)
+        if bad.size:
+            return stride, lo + int(bad[0]) + 1
+    if not exact:
+        stride = float(axis[-1] - axis[0]) / (n - 1)
+    return stride, None
+
+
+def stress_from_table(
+    table: Table,
+    *,
+    temperature: float | None = None,
+    volume: float | None = None,
+    _consume: bool = False,
+) -> StressSeries:
+    """See :func:`transport.io.stress_from_table`.
+
+    With `_consume` the table's columns are released as they are converted, so that the
+    peak memory stays near one copy of the data (used by :func:`load_stress`, which owns
+    the table).
+    """
+    src = table.source
+    spath = src.path or None
+    fmt = src.format
+    canon = table.canonical
+    cols = table.columns
+    warnings: list[str] = list(table.warnings)
+    used_block = next((b for b in table.blocks if b.used), None)
+    header_line = used_block.header_line if used_block is not None else None
+
+    missing = [c for c in TENSOR_ORDER if c not in canon]
+    if missing:
+        found = list(used_block.columns) if used_block is not None else list(cols)
+        raise InputError(
+            f"no pressure-tensor column for {', '.join(missing)}; columns found: "
+            f"{' '.join(found)}", path=spath, line=header_line,
+            expected="the six components pxx pyy pzz pxy pxz pyz",
+            fix=_fix_for_missing(fmt),
+        )
+    units = table.units
+    if units is None:
+        raise InputError(
+            "the file does not say its units", path=spath,
+            expected="a unit convention (real, metal, lj, si, gromacs, ...)",
+            fix="pass --units",
+        )
+    n = table.n
+    if n < 4:
+        raise InputError(
+            f"only {n} rows of the pressure tensor", path=spath, line=header_line,
+            expected="a time series of many samples",
+            fix="check that the thermo output interval is short compared with the run",
+        )
+
+    # ---- time axis --------------------------------------------------------------------
+    if "time" in canon:
+        tcol = cols[canon["time"]]
+        spacing, bad = _uniform(tcol, exact=False)
+        dt = spacing * units.time
+        t0 = float(tcol[0]) * units.time
+        axis_name, axis = canon["time"], tcol
+        dt_how = f"from column '{canon['time']}'"
+    elif "step" in canon:
+        scol = cols[canon["step"]]
+        if table.timestep is None:
+            raise InputError(
+                "the file does not give the time step", path=spath,
+                expected=f"the integration time step (in {units.time_label or 'engine'} "
+                "units)",
+                fix="pass --timestep",
+            )
+        spacing, bad = _uniform(scol, exact=True)
+        dt = spacing * table.timestep * units.time
+        t0 = float(scol[0]) * table.timestep * units.time
+        axis_name, axis = canon["step"], scol
+        dt_how = (f"{spacing:g} steps x {table.timestep:g} {units.time_label} "
+                  f"({table.timestep_source})")
+    else:
+        raise InputError(
+            "no step or time column", path=spath, line=header_line,
+            expected="a column of step numbers or times",
+            fix="add step (or time) to the output",
+        )
+    if not spacing > 0:
+        raise InputError(
+            f"column '{axis_name}' does not increase", path=spath,
+            line=table.line_of(1), expected="increasing steps or times",
+            fix="choose one run with --run, or sort the rows",
+        )
+    if bad is not None:
+        prev, here = axis[bad - 1], axis[bad]
+        raise InputError(
+            f"samples are not evenly spaced: {axis_name} {here:.10g} follows {prev:.10g} "
+            f"(the interval elsewhere is {spacing:.10g})", path=spath,
+            line=table.line_of(bad),
+            expected="a constant interval between rows",
+            fix=("choose one run with --run, or remove the rows out of sequence"
+                 if fmt in ("lammps-log", "table") else
+                 "write the samples at a fixed interval (or resample them)"),
+        )
+
+    # ---- volume -----------------------------------------------------------------------------
+    vol_file = None
+    if "volume" in canon:
+        vol_file = cols[canon["volume"]] * units.volume
+        vol_how = f"column '{canon['volume']}'"
+    elif all(c in canon for c in ("lx", "ly", "lz")):
+        vol_file = (cols[canon["lx"]] * cols[canon["ly"]]) * cols[canon["lz"]]
+        vol_file *= units.volume
+        vol_how = f"columns '{canon['lx']}' x '{canon['ly']}' x '{canon['lz']}'"
+    if vol_file is not None:
+        if np.all(vol_file == vol_file[0]):
+            vol: float | np.ndarray = float(vol_file[0])
+        else:
+            vol = vol_file
+        if volume is not None:
+            given = float(volume) * units.volume
+            mean = float(np.mean(vol_file))
+            if not np.isclose(given, mean, rtol=1e-3, atol=0):
+                warnings.append(
+                    f"{src.path}: --volume {float(volume):g} {units.length_label}^3 differs "
+                    f"from the file's {vol_how} (mean {mean / units.volume:g}); used the file"
+                )
+    elif volume is not None:
+        try:
+            vol = float(volume) * units.volume
+        except (TypeError, ValueError):
+            raise InputError(f"volume {volume!r} is not a number", path=spath,
+                             fix="pass --volume as a number") from None
+        vol_how = f"given by the user ({float(volume):g} {units.length_label}^3)"
+    else:
+        raise InputError(
+            "no volume: the file has no volume column and no box lengths", path=spath,
+            line=header_line, expected="vol (or lx, ly, lz) among the columns",
+            fix=f"pass --volume (in {units.length_label}^3), or add vol to the output",
+        )
+
+    # ---- temperature ------------------------------------------------------------------------
+    temp_how = ""
+    temp: float | None = None
+    if temperature is not None:
+        try:
+            temp = float(temperature)
+        except (TypeError, ValueError):
+            raise InputError(f"temperature {temperature!r} is not a number", path=spath,
+                             fix="pass --temperature as a number") from None
+        temp_how = "set point given by the user"
+    elif "temperature" in canon:
+        name = canon["temperature"]
+        temp = float(np.mean(cols[name]))
+        temp_how = f"mean of column '{name}'"
+        unit = "" if units.reduced else " K"
+        warnings.append(
+            f"{src.path}: temperature taken as the mean of column '{name}' "
+            f"({temp:.6g}{unit}); the thermostat set point is preferred: pass --temperature"
+        )
+
+    # ---- pressure tensor ----------------------------------------------------------------------
+    pressure = np.empty((6, n), dtype=np.float64)
+    f = units.pressure
+    symmetrised = []
+    for i, c in enumerate(TENSOR_ORDER):
+        a = cols[canon[c]]
+        transposed = "p" + c[2] + c[1]
+        if c[1] != c[2] and transposed in canon:
+            np.add(a, cols[canon[transposed]], out=pressure[i])
+            pressure[i] *= 0.5 * f
+            symmetrised.append(f"{c}=({canon[c]}+{canon[transposed]})/2")
+        else:
+            np.multiply(a, f, out=pressure[i])
+        if _consume:
+            keep_for = {canon.get("volume"), canon.get("temperature"), axis_name}
+            if canon[c] not in keep_for:
+                cols.pop(canon[c], None)
+
+    used = {c: canon[c] for c in TENSOR_ORDER}
+    for c in ("pyx", "pzx", "pzy"):
+        if c in canon:
+            used[c] = canon[c]
+    used[("time" if "time" in canon else "step")] = axis_name
+    if "volume" in canon and vol_file is not None:
+        used["volume"] = canon["volume"]
+    elif vol_file is not None:
+        used.update({c: canon[c] for c in ("lx", "ly", "lz")})
+    if temp_how.startswith("mean"):
+        used["temperature"] = canon["temperature"]
+
+    desc = src.description
+    desc += (f"; pressure x {f:.10g} Pa per {units.pressure_label}" if not units.reduced
+             else "; reduced units (no conversion)")
+    if symmetrised:
+        desc += "; off-diagonal pairs averaged: " + ", ".join(symmetrised)
+    desc += f"; dt {dt_how}; volume: {vol_how}"
+    if temp_how:
+        desc += f"; temperature: {temp_how}"
+    source = replace(src, description=desc, rows=n, columns=used)
+    return StressSeries(
+        pressure=pressure, dt=dt, volume=vol, temperature=temp, units=units, source=source,
+        temperature_source=temp_how, t0=t0, warnings=tuple(dict.fromkeys(warnings)),
+    )

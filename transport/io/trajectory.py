@@ -1,0 +1,1174 @@
+"""Trajectories through MDAnalysis: continuous particle positions for self-diffusion.
+
+One pass over the frames turns what a trajectory file stores (wrapped or unwrapped
+coordinates, image flags, velocities, the box) into a :class:`~transport.series.PositionSeries`
+of continuous positions in internal units (m and s, or reduced Lennard-Jones units), grouped
+into particles (atoms, or centres of mass of residues or molecules) and species.
+
+Unwrapping, in order of preference (``unwrap="auto"``):
+
+1. unwrapped coordinates written by the engine (LAMMPS dump columns ``xu yu zu``), used as
+   they are while the box is constant;
+2. image flags (dump columns ``ix iy iz``): ``u(t+1) = u(t) + [x(t+1) - x(t)] +
+   [n(t+1) - n(t)] L(t+1)``, which for a constant box is ``x + n L`` exactly;
+3. on-the-fly unwrapping of wrapped coordinates that adds, frame by frame, the
+   minimum-image displacement in the box of the later frame [1]_:
+   ``u(t+1) = u(t) + d - L(t+1) round(d / L(t+1))``, ``d = w(t+1) - w(t)`` with ``w`` the
+   coordinates wrapped into the box.
+
+The scheme that adds image counts times the *current* box (``x(t) + n(t) L(t)``) is never
+used: under a fluctuating box it adds spurious jumps ``n (L(t) - L(t'))`` and inflates D [1]_.
+Unwrapped columns under a fluctuating box are therefore re-wrapped and unwrapped by scheme 3.
+Scheme 3 is trusted only if the frames are close: a per-frame displacement above half a box
+length would be assigned to the wrong image. When the root-mean-square per-frame displacement
+of a coordinate exceeds a twelfth of the shortest box length (so that half a box is six
+standard deviations away), the reader refuses with :class:`~transport.errors.InputError`.
+
+Coordinates of unknown kind (DCD, XTC, TRR, ...) are unwrapped by scheme 3; if no coordinate
+ever jumps by more than half a box and the box is constant, the result equals the coordinates
+as stored (they were continuous already) and no spacing check is needed.
+
+Memory: positions (and velocities) of the particles are stored as float32, in memory or, when
+they would exceed `memory_limit`, in a scratch :class:`numpy.memmap` file that is deleted
+when no longer referenced; the unwrapping state holds one float64 copy of the current frame.
+
+Units: MDAnalysis reports lengths in Angstrom, times in ps and velocities in Angstrom/ps
+(converting from the formats that store other units); these are converted to SI here. LAMMPS
+dump files have no unit metadata: their numbers are in the engine units named by `units`.
+With ``units="lj"`` no conversion at all is applied (MDAnalysis's own conversion is switched
+off) and the numbers are taken as reduced units.
+
+References
+----------
+.. [1] M. von Bülow, J. T. Bullerjahn and G. Hummer, "Systematic errors in diffusion
+   coefficients from long-time molecular dynamics simulations at constant pressure",
+   J. Chem. Phys. 153, 021101 (2020).
+.. [2] R. J. Gowers et al., "MDAnalysis: a Python package for the rapid analysis of molecular
+   dynamics simulations", Proc. 15th Python in Science Conf., 98 (2016); N. Michaud-Agrawal
+   et al., J. Comput. Chem. 32, 2319 (2011).
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import re
+import tempfile
+import warnings as _warnings
+from collections.abc import Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Literal
+
+import numpy as np
+from numpy.typing import ArrayLike
+
+from ..errors import InputError
+from ..series import PositionSeries, Source
+from ..units import UnitSystem, get_unit_system
+
+__all__ = [
+    "GROUP_BY",
+    "UNWRAP_SCHEMES",
+    "load_trajectory",
+    "positions_from_arrays",
+]
+
+GroupBy = Literal["atom", "type", "residue", "molecule"]
+Unwrap = Literal["auto", "none", "images", "displacement"]
+
+#: Accepted values of ``group_by``.
+GROUP_BY: tuple[str, ...] = ("atom", "type", "residue", "molecule")
+#: Accepted values of ``unwrap``.
+UNWRAP_SCHEMES: tuple[str, ...] = ("auto", "none", "images", "displacement")
+
+#: Largest trusted rms per-frame displacement of one coordinate, as a fraction of the shortest
+#: box length: half a box is then 6 standard deviations away (a Gaussian exceeds that with
+#: probability 2e-9; liquids have heavier tails, hence the margin).
+MAX_STEP_FRACTION = 1.0 / 12.0
+#: Relative change of a box length that counts as a fluctuating box (float32 boxes carry
+#: ~1e-7 relative rounding).
+_BOX_RTOL = 1e-5
+_ANGSTROM = 1e-10
+_PS = 1e-12
+_AMU = 1.66053906660e-27  # kg, CODATA 2018 atomic mass constant (= scipy.constants.atomic_mass)
+
+
+# ---------------------------------------------------------------------------------------
+# the one-pass frame processor (shared by files and in-memory arrays)
+# ---------------------------------------------------------------------------------------
+
+
+@dataclass
+class _Particles:
+    """How selected atoms form particles and species."""
+
+    atom_index: np.ndarray  # indices (into all atoms) of the selected atoms
+    weights: Any  # None (each selected atom is a particle) or sparse (P x n_sel) matrix
+    species: np.ndarray
+    species_names: tuple[str, ...]
+    masses: np.ndarray  # per particle, engine mass unit
+    atoms_per_particle: np.ndarray
+
+    @property
+    def n(self) -> int:
+        return int(self.species.size)
+
+    def reduce(self, a: np.ndarray) -> np.ndarray:
+        """Particle values (B, P, 3) from atom values (B, n_atoms, 3)."""
+        sel = a[:, self.atom_index]
+        if self.weights is None:
+            return sel
+        b, n_sel, _ = sel.shape
+        flat = sel.transpose(1, 0, 2).reshape(n_sel, b * 3)
+        return np.asarray(self.weights @ flat).reshape(-1, b, 3).transpose(1, 0, 2)
+
+
+class _Store:
+    """Float32 frames x particles x 3 storage, in memory or in a deleted scratch file."""
+
+    def __init__(self, n_frames: int, n_part: int, memory_limit: float,
+                 scratch_dir: str | None, n_arrays: int) -> None:
+        nbytes = n_frames * n_part * 3 * 4
+        self.spilled = nbytes * n_arrays > memory_limit
+        self.n_frames = n_frames
+        if self.spilled:
+            folder = scratch_dir or tempfile.gettempdir()
+            fd, name = tempfile.mkstemp(prefix="transport-positions-", suffix=".f32",
+                                        dir=folder)
+            os.close(fd)
+            try:
+                self.array: np.ndarray = np.memmap(name, dtype=np.float32, mode="w+",
+                                                   shape=(n_frames, n_part, 3))
+            finally:
+                # the mapping keeps the data alive; the name disappears at once, so nothing
+                # is left behind whatever happens next
+                Path(name).unlink(missing_ok=True)
+        else:
+            self.array = np.empty((n_frames, n_part, 3), dtype=np.float32)
+
+    def finish(self, n_used: int) -> np.ndarray:
+        a = self.array[:n_used]
+        if self.spilled and isinstance(a, np.memmap):
+            a.flush()
+        return a
+
+
+@dataclass
+class _UnwrapStats:
+    frames: int = 0
+    sum_d2: float = 0.0
+    n_d: int = 0
+    raw_jumps: int = 0
+    box_changed: bool = False
+    min_box: float = math.inf
+    switched_at: int | None = None
+
+
+def _wrap(x: np.ndarray, box: np.ndarray) -> np.ndarray:
+    """Coordinates wrapped into [0, L) (box broadcast over atoms)."""
+    return x - box * np.floor(x / box)
+
+
+class _FrameProcessor:
+    """Unwraps every atom block of frames by block, reduces to particles, tracks drift.
+
+    Blocks are arrays of B consecutive frames (B >= 1); the state carried between blocks is
+    the last frame's raw, wrapped and unwrapped coordinates and image flags, so the result
+    does not depend on how the frames are blocked.
+    """
+
+    def __init__(self, *, mode: str, explicit: bool, atom_masses: np.ndarray,
+                 particles: _Particles, velocities: bool, path: str | None) -> None:
+        self.mode = mode  # none | unwrapped | images | displacement
+        self.explicit = explicit  # the user asked for this scheme
+        self.masses = atom_masses
+        self.mtot = float(atom_masses.sum())
+        self.particles = particles
+        self.want_v = velocities
+        self.path = path
+        self.stats = _UnwrapStats()
+        self._u: np.ndarray | None = None  # last unwrapped frame (n, 3)
+        self._x: np.ndarray | None = None  # last raw frame
+        self._n: np.ndarray | None = None  # last image flags
+        self._box0: np.ndarray | None = None
+        self._last_box: np.ndarray | None = None
+
+    @property
+    def last_raw(self) -> np.ndarray | None:
+        return self._x
+
+    # -- unwrapping -----------------------------------------------------------------------
+    def _first(self, x: np.ndarray, box: np.ndarray | None, images: np.ndarray | None
+               ) -> np.ndarray:
+        u = x + images * box if self.mode == "images" else x.copy()
+        self._u, self._x, self._n = u, x, images
+        self._box0 = None if box is None else box.copy()
+        self._last_box = self._box0
+        self.stats.frames += 1
+        if box is not None:
+            self.stats.min_box = min(self.stats.min_box, float(box.min()))
+        return u
+
+    def unwrap(self, x: np.ndarray, box: np.ndarray | None, images: np.ndarray | None
+               ) -> np.ndarray:
+        """Continuous coordinates (B, n, 3) of a block of raw frames x (B, n, 3)."""
+        if self._u is None:
+            first = self._first(x[0], None if box is None else box[0],
+                                None if images is None else images[0])
+            if x.shape[0] == 1:
+                return first[None]
+            rest = self.unwrap(x[1:], None if box is None else box[1:],
+                               None if images is None else images[1:])
+            return np.concatenate([first[None], rest])
+        st = self.stats
+        if box is not None:
+            st.min_box = min(st.min_box, float(box.min()))
+            if not st.box_changed and self._box0 is not None:
+                moved = np.any(np.abs(box - self._box0) > _BOX_RTOL * self._box0, axis=1)
+                if moved.any():
+                    s = int(np.argmax(moved))
+                    if s > 0:  # frames before the first change, then the rest
+                        a = self.unwrap(x[:s], box[:s], None if images is None else images[:s])
+                        b = self.unwrap(x[s:], box[s:], None if images is None else images[s:])
+                        return np.concatenate([a, b])
+                    st.box_changed = True
+                    if self.mode == "unwrapped":
+                        # unwrapped columns were built with the current box: re-derive them
+                        self.mode = "displacement"
+                        st.switched_at = st.frames
+        st.frames += x.shape[0]
+        xs = np.concatenate([self._x[None], x])  # previous frame first
+        if box is not None and self.mode != "images":
+            st.raw_jumps += int(np.count_nonzero(np.abs(np.diff(xs, axis=0))
+                                                 > 0.5 * box[:, None, :]))
+        if self.mode == "none":
+            u = x.copy()
+        elif self.mode == "images":
+            ns = np.concatenate([self._n[None], images])
+            steps = np.diff(xs, axis=0) + np.diff(ns, axis=0) * box[:, None, :]
+            u = self._u + np.cumsum(steps, axis=0)
+            self._n = images[-1]
+        else:
+            ws = _wrap(xs, np.concatenate([self._last_box[None], box])[:, None, :])
+            d = np.diff(ws, axis=0)
+            d -= box[:, None, :] * np.rint(d / box[:, None, :])
+            st.sum_d2 += float(np.einsum("bij,bij->", d, d))
+            st.n_d += d.size
+            u = x.copy() if self.mode == "unwrapped" else self._u + np.cumsum(d, axis=0)
+        if box is not None:
+            self._last_box = box[-1].copy()
+        self._u, self._x = u[-1], x[-1]
+        self.check()
+        return u
+
+    # -- the spacing check ------------------------------------------------------------------
+    def check_applies(self) -> bool:
+        st = self.stats
+        if self.mode != "displacement":
+            return False
+        return self.explicit or st.raw_jumps > 0 or st.box_changed
+
+    def step_rms(self) -> float:
+        st = self.stats
+        return math.sqrt(st.sum_d2 / st.n_d) if st.n_d else 0.0
+
+    def check(self, final: bool = False) -> None:
+        st = self.stats
+        if st.n_d == 0 or (st.frames < 4 and not final) or not self.check_applies():
+            return
+        rms = self.step_rms()
+        if rms > MAX_STEP_FRACTION * st.min_box:
+            raise InputError(
+                f"frames are too far apart to unwrap wrapped coordinates: the rms "
+                f"displacement of a coordinate between frames is {rms / st.min_box:.3g} of "
+                f"the shortest box length (above {MAX_STEP_FRACTION:.3g}, steps cannot be "
+                "assigned to the right periodic image reliably)",
+                path=self.path,
+                expected="frames written often enough that atoms move much less than half a "
+                         "box between them",
+                fix="write frames more often, or write unwrapped coordinates (xu yu zu) or "
+                    "image flags (ix iy iz); if the coordinates are already unwrapped use "
+                    "--unwrap none",
+            )
+
+    def scheme_label(self) -> str:
+        st = self.stats
+        if self.mode == "none":
+            return "none"
+        if self.mode == "images":
+            return "image flags"
+        if self.mode == "unwrapped":
+            return "unwrapped coordinates"
+        if st.switched_at is not None:
+            return ("displacement (unwrapped coordinates re-wrapped: the box fluctuates; "
+                    "von Bülow et al. 2020)")
+        if not self.explicit and st.raw_jumps == 0 and not st.box_changed:
+            return "none (coordinates are continuous)"
+        return "displacement (minimum-image steps; von Bülow et al. 2020)"
+
+    # -- a block: unwrap, centre of mass, particles ------------------------------------------
+    def block(self, x: np.ndarray, box: np.ndarray | None, images: np.ndarray | None,
+              v: np.ndarray | None) -> dict[str, np.ndarray | None]:
+        """Particle positions/velocities, system COM and its velocity, 2 KE, for B frames."""
+        u = self.unwrap(x, box, images)
+        out: dict[str, np.ndarray | None] = {
+            "pos": self.particles.reduce(u),
+            "com": np.einsum("bnk,n->bk", u, self.masses) / self.mtot,
+            "box": box,
+            "pv": None, "vcom": None, "twoke": None,
+        }
+        if v is not None and self.want_v:
+            vcom = np.einsum("bnk,n->bk", v, self.masses) / self.mtot
+            out["pv"] = self.particles.reduce(v)
+            out["vcom"] = vcom
+            out["twoke"] = (np.einsum("bnk,bnk,n->b", v, v, self.masses)
+                            - self.mtot * np.einsum("bk,bk->b", vcom, vcom))
+        return out
+
+
+# ---------------------------------------------------------------------------------------
+# building particles from an MDAnalysis selection
+# ---------------------------------------------------------------------------------------
+
+
+def _weights_matrix(owner: np.ndarray, masses: np.ndarray, n_part: int):
+    """Sparse (n_part x n_sel) matrix of mass fractions: particle COM = W @ atom positions."""
+    from scipy import sparse
+
+    tot = np.bincount(owner, weights=masses, minlength=n_part)
+    counts = np.bincount(owner, minlength=n_part)
+    w = np.where(tot[owner] > 0, masses / np.where(tot[owner] > 0, tot[owner], 1.0),
+                 1.0 / counts[owner])
+    mat = sparse.csr_matrix((w, (owner, np.arange(owner.size))), shape=(n_part, owner.size))
+    return mat, tot, counts
+
+
+def _species_codes(labels: Sequence[str]) -> tuple[np.ndarray, tuple[str, ...]]:
+    names = tuple(dict.fromkeys(labels))
+    index = {n: i for i, n in enumerate(names)}
+    return np.array([index[s] for s in labels], dtype=np.intp), names
+
+
+def _composition(types: np.ndarray) -> str:
+    kinds, counts = np.unique(types.astype(str), return_counts=True)
+    return "".join(f"{k}{c if c > 1 else ''}" for k, c in zip(kinds, counts, strict=True))
+
+
+def _build_particles(u: Any, sel: Any, group_by: str, selection: str, masses_all: np.ndarray,
+                     path: str) -> _Particles:
+    idx = np.asarray(sel.indices, dtype=np.intp)
+    m = masses_all[idx]
+    if group_by in ("atom", "type"):
+        if group_by == "atom":
+            labels = [selection] * idx.size
+        else:
+            labels = [f"type {t}" for t in np.asarray(sel.types).astype(str)]
+        codes, names = _species_codes(labels)
+        return _Particles(idx, None, codes, names, m, np.ones(idx.size, dtype=np.intp))
+    if group_by == "residue":
+        owner_raw = np.asarray(sel.resindices)
+        resnames = getattr(sel, "resnames", None)
+        if resnames is None:
+            keys = np.asarray(sel.resids).astype(str)
+            label_of = {int(r): "residue" for r in owner_raw}
+        else:
+            keys = np.asarray(resnames).astype(str)
+            label_of = dict(zip(owner_raw.tolist(), keys.tolist(), strict=True))
+    else:  # molecule
+        try:
+            owner_raw = np.asarray(sel.fragindices)
+        except Exception:  # MDAnalysis raises NoDataError without bonds
+            raise InputError(
+                "grouping by molecule needs bonds in the topology, and it has none",
+                path=path,
+                expected="a topology with bonds (PSF, TPR, LAMMPS data with a Bonds "
+                         "section, PDB with CONECT records)",
+                fix="use --group-by residue, or give a topology that lists bonds",
+            ) from None
+        types = np.asarray(sel.types).astype(str)
+        try:
+            resn = np.asarray(sel.resnames).astype(str)
+        except Exception:
+            resn = None
+        label_of = {}
+        order = np.argsort(owner_raw, kind="stable")
+        bounds = np.flatnonzero(np.diff(owner_raw[order])) + 1
+        for chunk in np.split(order, bounds):
+            key = int(owner_raw[chunk[0]])
+            if resn is not None and np.unique(resn[chunk]).size == 1 and resn[chunk[0]] \
+                    not in ("", "UNK", "SYSTEM"):
+                label_of[key] = str(resn[chunk[0]])
+            else:
+                label_of[key] = _composition(types[chunk])
+    uniq, owner = np.unique(owner_raw, return_inverse=True)
+    mat, tot, counts = _weights_matrix(owner, m, uniq.size)
+    labels = [label_of[int(k)] for k in uniq]
+    codes, names = _species_codes(labels)
+    return _Particles(idx, mat, codes, names, tot, counts.astype(np.intp))
+
+
+# ---------------------------------------------------------------------------------------
+# opening files with MDAnalysis
+# ---------------------------------------------------------------------------------------
+
+_ATOM_STYLES = {
+    "atomic": "id type x y z",
+    "charge": "id type charge x y z",
+    "bond": "id resid type x y z",
+    "angle": "id resid type x y z",
+    "molecular": "id resid type x y z",
+    "full": "id resid type charge x y z",
+}
+_DATA_ATOMS = re.compile(rb"^\s*Atoms\s*#\s*(\w+)", re.MULTILINE)
+
+
+def _check_file(path: str | os.PathLike[str], what: str) -> Path:
+    p = Path(path)
+    if not p.exists():
+        raise InputError(f"{what} file not found", path=str(p),
+                         fix="check the path and the spelling")
+    if p.is_dir():
+        raise InputError(f"{what} is a directory, not a file", path=str(p),
+                         fix="give the file inside the directory")
+    try:
+        with open(p, "rb"):
+            pass
+    except OSError as exc:
+        raise InputError(f"{what} file cannot be read ({exc.strerror})", path=str(p),
+                         fix="check the file permissions") from None
+    if p.stat().st_size == 0:
+        raise InputError(f"{what} file is empty", path=str(p),
+                         fix="check that the run wrote its output to this file")
+    return p
+
+
+def _head(p: Path, n: int = 1 << 16) -> bytes:
+    from ._open import read_head
+
+    return read_head(p, n)[0]
+
+
+def _topology_kwargs(p: Path) -> dict[str, Any]:
+    """Parser options MDAnalysis cannot guess: the atom style of a LAMMPS data file."""
+    name = p.name.lower()
+    if not name.endswith((".data", ".lmp", ".data.gz", ".lammps-data")):
+        return {}
+    head = _head(p, 1 << 20)
+    m = _DATA_ATOMS.search(head)
+    if m:
+        style = m.group(1).decode("ascii", "replace").lower()
+        if style in _ATOM_STYLES:
+            return {"atom_style": _ATOM_STYLES[style]}
+    return {}
+
+
+@dataclass(frozen=True)
+class _DumpInfo:
+    convention: str  # MDAnalysis lammps_coordinate_convention
+    unwrapped: bool
+    images: bool
+    velocities: bool
+
+
+def _dump_info(p: Path) -> _DumpInfo | None:
+    """Columns of a LAMMPS dump (None if `p` is not a dump)."""
+    head = _head(p)
+    if not head.lstrip().startswith(b"ITEM: TIMESTEP"):
+        return None
+    m = re.search(rb"^ITEM: ATOMS ([^\n]*)", head, re.MULTILINE)
+    if m is None:
+        raise InputError("LAMMPS dump has no 'ITEM: ATOMS' header in its first frame",
+                         path=str(p), expected="a dump custom file with per-atom columns")
+    cols = m.group(1).decode("ascii", "replace").split()
+    have = set(cols)
+    if {"xu", "yu", "zu"} <= have:
+        conv, unwrapped = "unwrapped", True
+    elif {"xsu", "ysu", "zsu"} <= have:
+        conv, unwrapped = "scaled_unwrapped", True
+    elif {"x", "y", "z"} <= have:
+        conv, unwrapped = "unscaled", False
+    elif {"xs", "ys", "zs"} <= have:
+        conv, unwrapped = "scaled", False
+    else:
+        raise InputError(
+            f"LAMMPS dump has no coordinate columns (columns: {' '.join(cols)})",
+            path=str(p), expected="x y z, xu yu zu, xs ys zs or xsu ysu zsu",
+            fix="dump the coordinates with 'dump custom ... id type xu yu zu' or x y z ix iy iz",
+        )
+    if "id" not in have:
+        raise InputError("LAMMPS dump has no 'id' column", path=str(p),
+                         expected="an id column (atoms are matched to the topology by id)",
+                         fix="add id to the dump custom columns")
+    return _DumpInfo(conv, unwrapped, {"ix", "iy", "iz"} <= have,
+                     {"vx", "vy", "vz"} <= have)
+
+
+def _mda_error(exc: BaseException) -> str:
+    text = " ".join(str(exc).split())
+    return text[:300] if text else type(exc).__name__
+
+
+def _open_topology(topology: Path, reduced: bool) -> Any:
+    import MDAnalysis as mda
+
+    kw = _topology_kwargs(topology)
+    try:
+        with _warnings.catch_warnings():
+            _warnings.simplefilter("ignore")
+            return mda.Universe(str(topology), **kw)
+    except Exception as exc:
+        raise InputError(
+            f"cannot read the topology ({_mda_error(exc)})",
+            path=str(topology),
+            expected="a topology MDAnalysis reads (PDB, GRO, PSF, TPR, LAMMPS data, ...)",
+            fix="check the file and its suffix (MDAnalysis chooses the parser by suffix)",
+        ) from None
+
+
+def _load_trajectory_into(u: Any, traj: Path, reduced: bool) -> _DumpInfo | None:
+    dump = _dump_info(traj)
+    kw: dict[str, Any] = {}
+    if reduced:
+        kw["convert_units"] = False
+    if dump is not None:
+        kw.update(format="LAMMPSDUMP", lammps_coordinate_convention=dump.convention)
+        if dump.images:
+            kw["additional_columns"] = ["ix", "iy", "iz"]
+    try:
+        with _warnings.catch_warnings():
+            _warnings.simplefilter("ignore")
+            u.load_new(str(traj), **kw)
+            n_atoms = u.trajectory.n_atoms
+            _ = len(u.trajectory)
+    except Exception as exc:
+        msg = _mda_error(exc)
+        if "atoms" in msg.lower() and ("match" in msg.lower() or "same number" in msg.lower()):
+            raise InputError(
+                f"the trajectory does not match the topology ({msg})",
+                path=str(traj),
+                expected=f"{u.atoms.n_atoms} atoms, as in the topology",
+                fix="give the topology this trajectory was written with",
+            ) from None
+        raise InputError(
+            f"cannot read the trajectory ({msg})",
+            path=str(traj),
+            expected="a trajectory MDAnalysis reads (DCD, XTC, TRR, LAMMPS dump, ...)",
+            fix="check the file and its suffix",
+        ) from None
+    if n_atoms != u.atoms.n_atoms:
+        raise InputError(
+            f"the trajectory has {n_atoms} atoms, the topology {u.atoms.n_atoms}",
+            path=str(traj),
+            expected="the same atoms in topology and trajectory",
+            fix="give the topology this trajectory was written with",
+        )
+    return dump
+
+
+def _steps_of(u: Any, ts: Any) -> int | None:
+    step = ts.data.get("step") if hasattr(ts, "data") else None
+    fmt = type(u.trajectory).__name__
+    if fmt.startswith("DCD"):
+        header = getattr(getattr(u.trajectory, "_file", None), "header", None)
+        if isinstance(header, dict) and header.get("nsavc"):
+            return int(header.get("istart", 0)) + ts.frame * int(header["nsavc"])
+        return None
+    if step is None:
+        return None
+    return int(step)
+
+
+# ---------------------------------------------------------------------------------------
+# public API
+# ---------------------------------------------------------------------------------------
+
+
+def _memory_default() -> float:
+    try:
+        avail = os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE")
+    except (ValueError, OSError, AttributeError):
+        avail = 4 * 2**30
+    return 0.5 * float(avail)
+
+
+def load_trajectory(
+    topology: str | os.PathLike[str],
+    trajectories: str | os.PathLike[str] | Sequence[str | os.PathLike[str]],
+    *,
+    select: str = "all",
+    group_by: GroupBy = "atom",
+    unwrap: Unwrap = "auto",
+    units: str | UnitSystem | None = None,
+    timestep: float | None = None,
+    frame_interval: float | None = None,
+    skip: float = 0.0,
+    temperature: float | None = None,
+    continuation: bool = False,
+    velocities: bool = True,
+    memory_limit: float | None = None,
+    scratch_dir: str | os.PathLike[str] | None = None,
+    progress: bool = False,
+) -> list[PositionSeries]:
+    """Read trajectories into continuous particle positions in internal units.
+
+    Parameters
+    ----------
+    topology : path
+        Any topology MDAnalysis reads (PDB, GRO, PSF, TPR, LAMMPS data, ...). The atom style
+        of a LAMMPS data file is taken from its ``Atoms # style`` comment.
+    trajectories : path or sequence of paths
+        Trajectory files (DCD, XTC, TRR, LAMMPS dump, optionally gzip-compressed, ...). Each
+        file is an independent replica, unless `continuation` is set.
+    select : str
+        MDAnalysis selection string of the atoms to analyse.
+    group_by : {"atom", "type", "residue", "molecule"}
+        Particles and species: the selected atoms as one species (``atom``), atoms by type
+        (``type``), centres of mass of residues by residue name (``residue``), or centres of
+        mass of bonded molecules (fragments) by residue name or composition (``molecule``).
+    unwrap : {"auto", "none", "images", "displacement"}
+        How continuous positions are obtained (see the module notes).
+    units : str or UnitSystem, optional
+        The engine's unit convention. Required for LAMMPS dumps (they do not state their
+        units). ``"lj"`` keeps reduced units. For other formats it only sets the unit of
+        `timestep` and `frame_interval` (default ps).
+    timestep : float, optional
+        Integration time step, in the engine's time unit: frame times are step numbers
+        (stored in dumps, XTC/TRR and DCD headers) times `timestep`.
+    frame_interval : float, optional
+        Time between frames, in the engine's time unit (overrides the file's times).
+    skip : float
+        Initial time to drop, in s (or tau), measured from the first frame.
+    temperature : float, optional
+        Temperature in K (or reduced). Default: the mean kinetic temperature from the
+        velocities, when the trajectory has them.
+    continuation : bool
+        Treat the files as consecutive parts of one run (a frame repeated at a boundary is
+        read once); the unwrapping continues across parts.
+    velocities : bool
+        Read velocities when the trajectory has them.
+    memory_limit : float, optional
+        Bytes of float32 positions and velocities kept in memory before they are spilled to
+        a scratch file (default: half the available memory).
+    scratch_dir : path, optional
+        Folder for the scratch file (default: the system's temporary folder).
+    progress : bool
+        Show a progress bar over the frames.
+
+    Returns
+    -------
+    list of PositionSeries
+        One series per replica (one in all with `continuation`).
+
+    Raises
+    ------
+    InputError
+        Missing or unreadable files, a trajectory that does not match the topology, an empty
+        selection, unknown frame times, or frames too far apart to unwrap.
+
+    References
+    ----------
+    .. [1] von Bülow, Bullerjahn & Hummer, J. Chem. Phys. 153, 021101 (2020).
+    """
+    if group_by not in GROUP_BY:
+        raise ValueError(f"group_by must be one of {GROUP_BY}, got {group_by!r}")
+    if unwrap not in UNWRAP_SCHEMES:
+        raise ValueError(f"unwrap must be one of {UNWRAP_SCHEMES}, got {unwrap!r}")
+    trajs = [trajectories] if isinstance(trajectories, (str, os.PathLike)) else list(
+        trajectories)
+    if not trajs:
+        raise ValueError("no trajectory given")
+    top = _check_file(topology, "topology")
+    paths = [_check_file(t, "trajectory") for t in trajs]
+    unit_sys = None if units is None else get_unit_system(units)
+    reduced = bool(unit_sys is not None and unit_sys.reduced)
+    for name, val in (("timestep", timestep), ("frame_interval", frame_interval),
+                      ("temperature", temperature)):
+        if val is not None and not (np.isfinite(val) and val > 0):
+            raise InputError(f"{name} is {val!r}", expected=f"a positive {name}",
+                             fix=f"pass a positive --{name.replace('_', '-')}")
+    if not (np.isfinite(skip) and skip >= 0):
+        raise InputError(f"skip is {skip!r}", expected="a non-negative time",
+                         fix="pass a non-negative --skip")
+    u = _open_topology(top, reduced)
+    try:
+        with _warnings.catch_warnings():
+            _warnings.simplefilter("ignore")
+            sel = u.select_atoms(select)
+    except Exception as exc:
+        raise InputError(f"selection {select!r} is not valid ({_mda_error(exc)})",
+                         path=str(top), expected="an MDAnalysis selection string",
+                         fix="see the MDAnalysis selection syntax, e.g. 'type 1' or "
+                             "'resname SOL'") from None
+    if sel.n_atoms == 0:
+        raise InputError(f"selection {select!r} matches no atoms", path=str(top),
+                         expected="at least one atom",
+                         fix="check the selection against the names/types in the topology")
+    notes: list[str] = []
+    try:
+        masses_raw = np.asarray(u.atoms.masses, dtype=np.float64)
+    except Exception:  # MDAnalysis NoDataError: no masses in the topology
+        masses_raw = np.zeros(u.atoms.n_atoms)
+    if not np.any(masses_raw > 0):
+        masses_raw = np.ones(u.atoms.n_atoms)
+        notes.append("the topology has no masses: all atoms weigh the same for centres of "
+                     "mass and drift removal")
+    masses_raw = np.where(masses_raw > 0, masses_raw, 0.0)
+    particles = _build_particles(u, sel, group_by, select, masses_raw, str(top))
+    if particles.n == 1 and particles.atoms_per_particle[0] > 1:
+        raise InputError(
+            f"grouping by {group_by} makes one particle of all {sel.n_atoms} selected atoms "
+            "(the topology defines no separate residues or molecules), whose centre of mass "
+            "cannot diffuse once the drift is removed",
+            path=str(top), expected="several residues or molecules in the selection",
+            fix="use --group-by atom or --group-by type",
+        )
+    mass_factor = 1.0 if reduced else _AMU
+    groups = [paths] if continuation else [[p] for p in paths]
+    out = []
+    for part_paths in groups:
+        out.append(_read_series(
+            u, top, part_paths, particles=particles, group_by=group_by, select=select,
+            unwrap=unwrap, unit_sys=unit_sys, reduced=reduced, timestep=timestep,
+            frame_interval=frame_interval, skip=skip, temperature=temperature,
+            want_velocities=velocities, memory_limit=(
+                _memory_default() if memory_limit is None else float(memory_limit)),
+            scratch_dir=None if scratch_dir is None else str(scratch_dir),
+            progress=progress, masses_all=masses_raw, mass_factor=mass_factor,
+            notes=tuple(notes),
+        ))
+    return out
+
+
+def _factors(dump: _DumpInfo | None, unit_sys: UnitSystem | None, reduced: bool,
+             path: Path) -> tuple[float, float]:
+    """(length factor, velocity factor) from the numbers MDAnalysis gives to internal units."""
+    if reduced:
+        return 1.0, 1.0
+    if dump is not None:
+        if unit_sys is None:
+            raise InputError(
+                "LAMMPS dump files do not state their units",
+                path=str(path), expected="the engine's unit convention",
+                fix="pass --units (real, metal, lj, si, ...)",
+            )
+        return unit_sys.length, unit_sys.length / unit_sys.time
+    return _ANGSTROM, _ANGSTROM / _PS
+
+
+def _frame_time(u: Any, ts: Any, dump: _DumpInfo | None, unit_sys: UnitSystem | None,
+                reduced: bool, timestep: float | None, frame_interval: float | None,
+                index: int, path: Path) -> tuple[float, str]:
+    """Time of a frame in internal units (s or tau) and how it was found."""
+    tunit = unit_sys.time if unit_sys is not None else _PS
+    if frame_interval is not None:
+        return index * frame_interval * tunit, "frame index x --frame-interval"
+    if timestep is not None:
+        step = _steps_of(u, ts)
+        if step is None:
+            raise InputError(
+                "the trajectory stores no step numbers to multiply by the time step",
+                path=str(path), expected="step numbers (dump, XTC, TRR, DCD)",
+                fix="give the time between frames with --frame-interval instead",
+            )
+        return step * timestep * tunit, "step numbers x --timestep"
+    if reduced or dump is not None:
+        raise InputError(
+            "the time between frames is not known" + (
+                " (reduced units)" if reduced else " (LAMMPS dumps store step numbers only)"),
+            path=str(path), expected="the integration time step or the frame interval",
+            fix="pass --timestep (the integration time step) or --frame-interval",
+        )
+    return float(ts.time) * _PS, "times stored in the trajectory"
+
+
+def _box_of(ts: Any, need: bool, path: Path, lf: float) -> np.ndarray | None:
+    dims = ts.dimensions
+    if dims is None or not np.all(np.asarray(dims[:3]) > 0):
+        if need:
+            raise InputError(
+                "the trajectory has no periodic box",
+                path=str(path), expected="box dimensions in every frame",
+                fix="use a format that stores the box, or --unwrap none with unwrapped "
+                    "coordinates",
+            )
+        return None
+    dims = np.asarray(dims, dtype=np.float64)
+    if need and np.any(np.abs(dims[3:] - 90.0) > 1e-3):
+        raise InputError(
+            f"the box is triclinic (angles {dims[3]:.4g}, {dims[4]:.4g}, {dims[5]:.4g})",
+            path=str(path), expected="an orthorhombic box for unwrapping",
+            fix="give unwrapped coordinates and use --unwrap none",
+        )
+    return dims[:3] * lf
+
+
+class _Collector:
+    """Keeps the frames after the skipped start: positions, velocities, drift, box, KE."""
+
+    def __init__(self, total: int, n_part: int, skip: float, memory_limit: float,
+                 scratch_dir: str | None, path: str | None) -> None:
+        self.total = total
+        self.n_part = n_part
+        self.skip = skip
+        self.memory_limit = memory_limit
+        self.scratch_dir = scratch_dir
+        self.path = path
+        self.n_seen = 0
+        self.k_skip = 0
+        self.t_first = 0.0
+        self.dt: float | None = None
+        self._pending: list[tuple[np.ndarray, dict]] = []
+        self.store_p: _Store | None = None
+        self.store_v: _Store | None = None
+        self.com: list[np.ndarray] = []
+        self.vcom: list[np.ndarray] = []
+        self.twoke: list[np.ndarray] = []
+        self.boxes: list[np.ndarray] = []
+        self.has_box = True
+        self.last_time: float | None = None
+
+    @property
+    def frames_given(self) -> int:
+        """Frames passed to :meth:`add` so far (including any still pending)."""
+        return self.n_seen + sum(p[0].size for p in self._pending)
+
+    def _allocate(self, has_v: bool) -> None:
+        n_store = self.total - self.k_skip
+        if n_store < 2:
+            raise InputError(
+                f"skipping {self.skip:.6g} leaves fewer than 2 of {self.total} frames",
+                path=self.path, expected="a skip shorter than the run",
+                fix="use a shorter --skip")
+        arrays = 2 if has_v else 1
+        self.store_p = _Store(n_store, self.n_part, self.memory_limit, self.scratch_dir, arrays)
+        if has_v:
+            self.store_v = _Store(n_store, self.n_part, self.memory_limit, self.scratch_dir,
+                                  arrays)
+
+    def _keep(self, first: int, rec: dict) -> None:
+        """Store a block whose first frame has global index `first`."""
+        b = rec["pos"].shape[0]
+        lo = max(0, self.k_skip - first)
+        if lo >= b:
+            return
+        k = first + lo - self.k_skip
+        assert self.store_p is not None
+        if k + b - lo > self.store_p.n_frames:
+            raise InputError("the trajectory has more frames than it announced",
+                             path=self.path, fix="check that the file is not being written")
+        self.store_p.array[k:k + b - lo] = rec["pos"][lo:]
+        if self.store_v is not None:
+            self.store_v.array[k:k + b - lo] = rec["pv"][lo:]
+            self.vcom.append(rec["vcom"][lo:])
+            self.twoke.append(rec["twoke"][lo:])
+        self.com.append(rec["com"][lo:])
+        if rec["box"] is None:
+            self.has_box = False
+        else:
+            self.boxes.append(rec["box"][lo:])
+
+    def add(self, t: np.ndarray, rec: dict) -> None:
+        """Add a block of B frames at times `t` (B,) with the processor's outputs `rec`."""
+        b = t.size
+        if self.dt is None:
+            self._pending.append((t, rec))
+            times = np.concatenate([p[0] for p in self._pending])
+            if times.size < 2:
+                return
+            dt = float(times[1] - times[0])
+            if not dt > 0:
+                raise InputError(
+                    f"frame times do not increase ({times[0]:.6g}, {times[1]:.6g})",
+                    path=self.path, expected="frames in time order",
+                    fix="pass --frame-interval if the stored times are wrong")
+            self.dt, self.t_first = dt, float(times[0])
+            self.k_skip = int(math.ceil(self.skip / dt - 1e-9)) if self.skip > 0 else 0
+            pending, self._pending = self._pending, []
+            self._allocate(pending[0][1]["pv"] is not None)
+            for tt, rr in pending:
+                self.add(tt, rr)
+            return
+        expect = self.t_first + (self.n_seen + np.arange(b)) * self.dt
+        off = np.abs(t - expect) > 1e-3 * self.dt
+        if off.any():
+            j = int(np.argmax(off))
+            raise InputError(
+                f"frames are not evenly spaced in time: frame {self.n_seen + j} is at "
+                f"{t[j]:.6g}, expected {expect[j]:.6g} (internal time units)",
+                path=self.path, expected="a constant time between frames",
+                fix="give consecutive parts in order, or pass --frame-interval")
+        self._keep(self.n_seen, rec)
+        self.n_seen += b
+        self.last_time = float(t[-1])
+
+    def finish(self) -> dict[str, Any]:
+        if self.n_seen < 2 or self.store_p is None or self.dt is None:
+            raise InputError(f"the trajectory has {self.n_seen} frame(s)", path=self.path,
+                             expected="at least 2 frames", fix="give a longer trajectory")
+        n = self.n_seen - self.k_skip
+        pos = self.store_p.finish(n)
+        vel = None if self.store_v is None else self.store_v.finish(n)
+        com = np.concatenate(self.com)
+        return {
+            "positions": pos,
+            "velocities": vel,
+            "drift": com - com[0],
+            "drift_velocity": np.concatenate(self.vcom) if self.vcom else None,
+            "twoke": np.concatenate(self.twoke) if self.twoke else None,
+            "box": np.concatenate(self.boxes) if self.has_box else None,
+            "dt": self.dt,
+            "t0": self.t_first + self.k_skip * self.dt,
+            "spilled": self.store_p.spilled,
+        }
+
+
+def _kinetic_temperature(twoke: np.ndarray | None, n_atoms: int, reduced: bool) -> float | None:
+    """Mean kinetic temperature, 2 KE / (k_B (3N - 3)), centre-of-mass motion removed."""
+    if twoke is None or n_atoms < 2:
+        return None
+    from ..units import BOLTZMANN
+
+    kb = 1.0 if reduced else BOLTZMANN
+    return float(np.mean(twoke) / (kb * (3 * n_atoms - 3)))
+
+
+def _read_series(u: Any, top: Path, paths: list[Path], *, particles: _Particles,
+                 group_by: str, select: str, unwrap: str, unit_sys: UnitSystem | None,
+                 reduced: bool, timestep: float | None, frame_interval: float | None,
+                 skip: float, temperature: float | None, want_velocities: bool,
+                 memory_limit: float, scratch_dir: str | None, progress: bool,
+                 masses_all: np.ndarray, mass_factor: float, notes: tuple[str, ...]
+                 ) -> PositionSeries:
+    from .._progress import progress_bar
+    from ._open import FileHash
+
+    hashes = [FileHash(p) for p in paths]
+    dumps = []
+    lengths = []
+    for p in paths:
+        dumps.append(_load_trajectory_into(u, p, reduced))
+        lengths.append(len(u.trajectory))
+    if unwrap == "auto":
+        d0 = dumps[0]
+        mode = ("unwrapped" if d0 is not None and d0.unwrapped else
+                "images" if d0 is not None and d0.images else "displacement")
+    else:
+        mode = unwrap
+    if mode == "images" and not all(d is not None and d.images for d in dumps):
+        raise InputError(
+            "unwrapping by image flags needs ix iy iz columns, and the trajectory has none",
+            path=str(paths[0]), expected="a LAMMPS dump with ix iy iz columns",
+            fix="use --unwrap auto or --unwrap displacement",
+        )
+    proc = _FrameProcessor(mode=mode, explicit=unwrap == "displacement",
+                           atom_masses=masses_all, particles=particles,
+                           velocities=want_velocities, path=str(paths[0]))
+    coll = _Collector(sum(lengths), particles.n, skip, memory_limit, scratch_dir,
+                      str(paths[0]))
+    n_atoms = u.atoms.n_atoms
+    block_size = max(1, min(64, (1 << 21) // max(1, n_atoms * 3)))
+    time_how = ""
+    has_v: bool | None = None
+    duplicates = 0
+    buf: dict[str, list] = {"t": [], "x": [], "box": [], "img": [], "v": []}
+
+    def flush() -> None:
+        if not buf["t"]:
+            return
+        boxes = None if buf["box"][0] is None else np.array(buf["box"])
+        rec = proc.block(np.array(buf["x"]), boxes,
+                         np.array(buf["img"]) if buf["img"][0] is not None else None,
+                         np.array(buf["v"]) if buf["v"][0] is not None else None)
+        coll.add(np.array(buf["t"]), rec)
+        for v in buf.values():
+            v.clear()
+
+    bar = progress_bar(progress, total=sum(lengths), desc="reading frames", unit="frame")
+    with bar:
+        for k, (p, dump) in enumerate(zip(paths, dumps, strict=True)):
+            if len(paths) > 1:
+                _load_trajectory_into(u, p, reduced)
+            lf, vf = _factors(dump, unit_sys, reduced, p)
+            with _warnings.catch_warnings():
+                _warnings.simplefilter("ignore")
+                for i, ts in enumerate(u.trajectory):
+                    bar.update(1)
+                    n_index = coll.frames_given + len(buf["t"])
+                    t, time_how = _frame_time(u, ts, dump, unit_sys, reduced, timestep,
+                                              frame_interval, n_index, p)
+                    x = ts.positions.astype(np.float64) * lf
+                    if k > 0 and i == 0:
+                        flush()
+                        last_x = proc.last_raw
+                        same = (np.array_equal(x, last_x) if frame_interval is not None
+                                else coll.last_time is not None and math.isclose(
+                                    t, coll.last_time, rel_tol=1e-9, abs_tol=1e-300))
+                        if same:
+                            duplicates += 1
+                            coll.total -= 1
+                            continue
+                        proc.path = coll.path = str(p)
+                    if not np.all(np.isfinite(x)):
+                        raise InputError(f"frame {ts.frame} has non-finite coordinates",
+                                         path=str(p), expected="finite coordinates",
+                                         fix="repair or truncate the trajectory")
+                    if has_v is None:
+                        has_v = bool(want_velocities and ts.has_velocities)
+                    buf["t"].append(t)
+                    buf["x"].append(x)
+                    buf["box"].append(_box_of(ts, mode != "none", p, lf))
+                    buf["img"].append(
+                        np.column_stack([ts.data["ix"], ts.data["iy"], ts.data["iz"]]
+                                        ).astype(np.float64) if mode == "images" else None)
+                    buf["v"].append(ts.velocities.astype(np.float64) * vf if has_v else None)
+                    if len(buf["t"]) >= block_size:
+                        flush()
+            flush()
+    proc.check(final=True)
+    res = coll.finish()
+    warn = list(notes)
+    if duplicates:
+        warn.append(f"{duplicates} frame(s) repeated at the boundary between parts were "
+                    "read once")
+    if mode == "none" and proc.stats.raw_jumps > 0:
+        warn.append(
+            f"{proc.stats.raw_jumps} coordinate jump(s) of more than half a box between "
+            "frames: the coordinates look wrapped, but --unwrap none was given")
+    if res["spilled"]:
+        warn.append("positions were kept in a scratch file (larger than the memory limit)")
+    temp, temp_src = temperature, "set point given by the user" if temperature else ""
+    if temp is None:
+        temp = _kinetic_temperature(res["twoke"], n_atoms, reduced)
+        if temp is not None:
+            temp_src = ("mean kinetic temperature from the velocities (3N - 3 degrees of "
+                        "freedom)")
+    t_unit = "tau" if reduced else "s"
+    label = proc.scheme_label()
+    sources = tuple(
+        Source(
+            path=str(p), format=f"trajectory:{type(u.trajectory).__name__}",
+            sha256=h.result(),
+            description=(
+                f"{n} frames; particles: {particles.n} ({group_by}) from selection "
+                f"{select!r}; unwrapping: {label}; time: {time_how}; "
+                f"frame interval {res['dt']:.6g} {t_unit}"),
+            rows=n,
+            columns={"topology": str(top)},
+        )
+        for p, h, n in zip(paths, hashes, lengths, strict=True)
+    )
+    return PositionSeries(
+        positions=res["positions"], dt=res["dt"], box=res["box"],
+        species=particles.species, species_names=particles.species_names,
+        masses=particles.masses * mass_factor,
+        units=unit_sys if unit_sys is not None else get_unit_system("si"),
+        velocities=res["velocities"], drift=res["drift"],
+        drift_velocity=res["drift_velocity"], temperature=temp,
+        temperature_source=temp_src, atoms_per_particle=particles.atoms_per_particle,
+        system_atoms=n_atoms, group_by=group_by, selection=select,
+        unwrap=label, sources=sources, t0=res["t0"], warnings=tuple(warn),
+    )
+
+
+def positions_from_arrays(
+    positions: ArrayLike,
+    box: ArrayLike,
+    dt: float,
+    *,
+    unwrap: Unwrap = "auto",
+    images: ArrayLike | None = None,
+    units: str | UnitSystem = "lj",
+    species: ArrayLike | None = None,
+    species_names: Sequence[str] | None = None,
+    masses: ArrayLike | None = None,
+    velocities: ArrayLike | None = None,
+    temperature: float | None = None,
+    skip: float = 0.0,
+    t0: float = 0.0,
+    block_frames: int = 256,
+) -> PositionSeries:
+    """Build a :class:`PositionSeries` from coordinates held in memory.
+
+    The frames go through the same one-pass unwrapping, drift tracking and float32 storage
+    as :func:`load_trajectory`, in blocks of frames.
+
+    Parameters
+    ----------
+    positions : array_like, shape (n_frames, n_particles, 3)
+        Coordinates in internal length units (m, or sigma), wrapped or not.
+    box : array_like, shape (3,) or (n_frames, 3)
+        Orthorhombic box lengths (same unit), constant or per frame; the box spans
+        ``[0, L)`` in each direction.
+    dt : float
+        Time between frames (s, or tau).
+    unwrap : {"auto", "none", "images", "displacement"}
+        ``auto`` uses `images` when given, else the displacement scheme (see the module
+        notes).
+    images : array_like of int, optional, shape like `positions`
+        Image flags n, so that the unwrapped position is ``x + n L`` for a constant box.
+    units : str or UnitSystem
+        Unit system of the numbers (``lj`` keeps reduced units; ``si`` means m, s, kg).
+    species, species_names : optional
+        Species code of each particle and the names (default: one species ``all``).
+    masses : array_like, optional
+        Particle masses (default 1); used for the centre-of-mass drift.
+    velocities : array_like, optional
+        Velocities (same shape as `positions`).
+    temperature : float, optional
+        Temperature (K or reduced), recorded for finite-size corrections.
+    skip : float
+        Initial time to drop (s, or tau).
+    t0 : float
+        Time of the first frame.
+    block_frames : int
+        Frames processed together (the result does not depend on it).
+
+    Returns
+    -------
+    PositionSeries
+
+    Raises
+    ------
+    InputError
+        Frames too far apart for the displacement scheme (see the module notes).
+    """
+    if unwrap not in UNWRAP_SCHEMES:
+        raise ValueError(f"unwrap must be one of {UNWRAP_SCHEMES}, got {unwrap!r}")
+    x_all = np.asarray(positions)
+    if x_all.ndim != 3 or x_all.shape[2] != 3:
+        raise ValueError(f"positions must have shape (n_frames, n_particles, 3), got "
+                         f"{x_all.shape}")
+    n_frames, n_part, _ = x_all.shape
+    box_all = np.broadcast_to(np.asarray(box, dtype=np.float64), (n_frames, 3))
+    img = None if images is None else np.broadcast_to(np.asarray(images), x_all.shape)
+    mode = unwrap if unwrap != "auto" else ("images" if img is not None else "displacement")
+    if mode == "images" and img is None:
+        raise ValueError("unwrap='images' needs `images`")
+    m = np.ones(n_part) if masses is None else np.broadcast_to(
+        np.asarray(masses, dtype=np.float64), (n_part,))
+    codes = np.zeros(n_part, dtype=np.intp) if species is None else np.asarray(
+        species, dtype=np.intp)
+    names = ("all",) if species_names is None else tuple(species_names)
+    parts = _Particles(np.arange(n_part), None, codes, names, m, np.ones(n_part, np.intp))
+    proc = _FrameProcessor(mode=mode, explicit=unwrap == "displacement", atom_masses=m,
+                           particles=parts, velocities=velocities is not None, path=None)
+    vel = None if velocities is None else np.asarray(velocities)
+    coll = _Collector(n_frames, n_part, skip, math.inf, None, None)
+    step = max(1, int(block_frames))
+    for a in range(0, n_frames, step):
+        b = min(n_frames, a + step)
+        rec = proc.block(np.asarray(x_all[a:b], dtype=np.float64), box_all[a:b],
+                         None if img is None else np.asarray(img[a:b], dtype=np.float64),
+                         None if vel is None else np.asarray(vel[a:b], dtype=np.float64))
+        coll.add(t0 + np.arange(a, b) * dt, rec)
+    proc.check(final=True)
+    res = coll.finish()
+    return PositionSeries(
+        positions=res["positions"], dt=dt, box=res["box"], species=codes,
+        species_names=names, masses=m, units=get_unit_system(units),
+        velocities=res["velocities"], drift=res["drift"],
+        drift_velocity=res["drift_velocity"], temperature=temperature,
+        temperature_source="given" if temperature else "", system_atoms=n_part,
+        group_by="atom", selection="all", unwrap=proc.scheme_label(), t0=res["t0"],
+    )
