@@ -211,7 +211,8 @@ def run_demo(
     Returns
     -------
     dict
-        Model name -> estimates made for it.
+        Model name -> estimates made for it, and ``"diffusion"`` -> the self-diffusion
+        estimates of the diffusion step.
     """
     from .io import load_stress
     from .report.figures import save_figure

@@ -8,7 +8,10 @@ the lag fit in the run (lag <= (N+1)/4 for N steps; the long-lag tail, few origi
 at the first lag from which ``alpha`` stays within ``max(0.1, 3 sd)`` of 1 up to that end
 (``sd`` the statistical spread of ``alpha`` for a random walk with as many particles and
 frames), which excludes the ballistic start and the caging shoulder. ``MSD(t) = 6 D t + b`` is
-fitted there by generalized least squares with the covariance matrix of the MSD points [1]_.
+fitted there by generalized least squares with the covariance matrix of the MSD points [1]_,
+at lags spaced by half the window start (every lag for a random walk; for inertial motion
+this keeps the frame-level smoothness of the trajectories, which a random walk lacks, out of
+the fit).
 
 Covariance choice (documented per the design note): the analytic covariance of the
 time-averaged MSD of a Gaussian random walk without localisation noise [1]_, derived here in
@@ -71,6 +74,7 @@ from .estimate import Estimate
 from .series import PositionSeries
 from .stats import autocorrelation
 from .stats import msd as _fft_msd
+from .units import UnitSystem
 
 __all__ = [
     "DiffusionAnalysis",
@@ -737,6 +741,12 @@ def analyse_diffusion(
     Returns
     -------
     DiffusionAnalysis
+
+    Raises
+    ------
+    RunTooShortError
+        No species has a diffusive regime within the trusted lags (a species without one,
+        beside others that have one, is named in ``notes`` instead).
     """
     if vacf not in ("auto", "yes", "no"):
         raise ValueError(f"vacf must be 'auto', 'yes' or 'no', got {vacf!r}")
@@ -746,10 +756,20 @@ def analyse_diffusion(
     msd_est: list[Estimate] = []
     vacf_est: list[Estimate] = []
     common_warn = tuple(dict.fromkeys(w for s in slist for w in s.warnings))
+    failures: list[RunTooShortError] = []
     for name in names:
         if msd:
-            msd_est.append(_msd_estimate(slist, name, fit_window, remove_drift, max_lag,
-                                         workers, common_warn))
+            try:
+                msd_est.append(_msd_estimate(slist, name, fit_window, remove_drift, max_lag,
+                                             workers, common_warn))
+            except RunTooShortError as exc:
+                # one species without a diffusive regime does not hide the others
+                if len(names) == 1:
+                    raise
+                failures.append(exc)
+                notes.append(f"no MSD estimate: {exc.one_line()}")
+    if msd and failures and not msd_est:
+        raise failures[0]
     if vacf != "no":
         has_v = all(s.velocities is not None for s in slist)
         if not has_v:
@@ -847,7 +867,7 @@ def _msd_estimate(slist: list[PositionSeries], name: str,
 
 
 def _msd_result(fit: MSDFit, mean: np.ndarray, time: np.ndarray, dt: float, name: str,
-                diag: dict, curves: dict, rule: str, u, warn: list[str], lf: float
+                diag: dict, curves: dict, rule: str, u: UnitSystem, warn: list[str], lf: float
                 ) -> Estimate:
     ds, ts = u.diffusion_scale, u.time_scale
     k0, k1 = int(fit.lags[0]), int(fit.lags[-1])

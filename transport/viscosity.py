@@ -374,8 +374,7 @@ def _fit_double_exp(
     The fit runs on dimensionless time t/t_max and integral eta/max|eta| so that it behaves
     the same in SI and reduced units; parameters are returned in the input's units.
     """
-    n = t.size
-    idx = np.unique(np.linspace(0, n - 1, num=min(n, 400)).astype(int))
+    idx = _fit_points(t.size)
     tscale = float(t[-1])
     yscale = float(np.max(np.abs(eta))) or 1.0
     tt, yy = t[idx] / tscale, eta[idx] / yscale
@@ -413,6 +412,37 @@ def _fit_double_exp(
         raise RuntimeError("double-exponential fit did not converge")
     a, alpha, tau1, tau2 = best
     return np.array([a * yscale / tscale, alpha, tau1 * tscale, tau2 * tscale])
+
+
+def _fit_points(n: int) -> np.ndarray:
+    """Indices of the (at most 400) points of the running integral used by the fit."""
+    return np.unique(np.linspace(0, n - 1, num=min(n, 400)).astype(int))
+
+
+def _plateau_sensitivity(
+    t: np.ndarray, popt: np.ndarray, b: float
+) -> tuple[np.ndarray, np.ndarray]:
+    """Linear response of the fitted plateau to a change of the fitted curve.
+
+    Returns the indices of the fitted points and h such that a change dy of the running
+    integral at those points moves the plateau by ``h @ dy`` (weighted Gauss–Newton step of
+    the same fit, pseudo-inverse for poorly determined directions).
+    """
+    idx = _fit_points(t.size)
+    # work in the fit's dimensionless units (t / t_max, eta / plateau) so that the
+    # pseudo-inverse's cut-off means the same in SI and reduced units
+    tscale = float(t[-1])
+    yscale = abs(_plateau(popt)) or 1.0
+    tt = t[idx] / tscale
+    a, alpha, tau1, tau2 = popt
+    ps = (a * tscale / yscale, alpha, tau1 / tscale, tau2 / tscale)
+    sig = np.maximum(tt, tt[0] if tt[0] > 0 else 1.0) ** b
+    jac = _double_exp_jac(tt, *ps) / sig[:, None]
+    a, alpha, tau1, tau2 = ps
+    grad = np.array([alpha * tau1 + (1 - alpha) * tau2, a * (tau1 - tau2), a * alpha,
+                     a * (1 - alpha)])
+    h = (grad @ np.linalg.pinv(jac, rcond=1e-10)) / sig
+    return idx, h
 
 
 def _plateau(p: np.ndarray) -> float:
@@ -703,16 +733,14 @@ def _green_kubo(
             fix="check the pressure-tensor columns, or give --cutoff TIME",
         ) from None
     value = _plateau(popt)
-    # jackknife over pieces of the whole fit (same cutoff and weights)
-    jk = np.empty(n)
-    total = integ[:, 1:kc + 1].sum(axis=0)
-    for i in range(n):
-        yi = (total - integ[i, 1:kc + 1]) / (n - 1)
-        try:
-            jk[i] = _plateau(_fit_double_exp(tt, yi, b, p0=popt))
-        except RuntimeError:
-            jk[i] = np.nan
-    jk = jk[np.isfinite(jk)]
+    # jackknife over pieces of the whole fit (same cutoff and weights), linearised: the
+    # leave-one-out curves differ from the mean by O(1/n), so each refit moves the plateau
+    # by the fit's sensitivity h times the change of the curve (infinitesimal jackknife;
+    # Efron, "The Jackknife, the Bootstrap and Other Resampling Plans", SIAM 1982).
+    h_idx, h = _plateau_sensitivity(tt, popt, b)
+    sub = integ[:, 1:kc + 1][:, h_idx]
+    loo = (sub.sum(axis=0)[None, :] - sub) / (n - 1)  # leave-one-out mean curves
+    jk = value + (loo - sub.mean(axis=0)[None, :]) @ h
     stderr = float(math.sqrt((jk.size - 1) / jk.size * np.sum((jk - jk.mean()) ** 2)))
     fit_curve = np.concatenate([[0.0], _double_exp(t[1:], *popt)])
     curves.update(sigma=std * vs, sigma_fit=sigma_fit * vs, fit=fit_curve * vs)

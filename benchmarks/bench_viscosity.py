@@ -1,0 +1,99 @@
+"""Benchmark: `transport viscosity` end to end against pandas merely reading the numbers.
+
+Uses the log generator of ``bench_read_log.py`` (an engine-format thermo log of ``--rows``
+production rows plus a file holding only its numeric lines). Side by side, each in a fresh
+process, alternating, ``--repeat`` times (best kept):
+
+* pandas: ``pd.read_csv(bare, sep=' ', skipinitialspace=True, header=None)``;
+* ``transport.io.load_stress`` + ``transport.viscosity.analyse_viscosity`` (Green–Kubo with
+  the automatic cutoff and error bar), which is what the ``viscosity`` command runs;
+* the same with ``method="both"`` (Green–Kubo and Einstein).
+
+Goal (issue): the Green–Kubo analysis end to end within 1.5x of the pandas read.
+
+Usage::
+
+    python benchmarks/bench_viscosity.py              # 10^7 rows (about 1.4 GB of text)
+    python benchmarks/bench_viscosity.py --rows 1e6   # quick check
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE))
+
+from bench_read_log import generate  # noqa: E402
+
+_CHILD = r"""
+import json, resource, sys, time
+import pandas as pd
+from transport.io import load_stress
+from transport.viscosity import analyse_viscosity
+which, path = sys.argv[1], sys.argv[2]
+base = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+t = time.perf_counter()
+if which == "pandas":
+    df = pd.read_csv(path, sep=" ", skipinitialspace=True, header=None)
+    rows = len(df)
+    read = time.perf_counter() - t
+else:
+    s = load_stress(path, temperature=300.0)
+    read = time.perf_counter() - t
+    method = "both" if which == "gk+einstein" else "green-kubo"
+    res = analyse_viscosity(s, method=method)
+    rows = s.n
+elapsed = time.perf_counter() - t
+peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss - base
+print(json.dumps({"seconds": elapsed, "read": read, "rows": rows, "extra_kib": peak}))
+"""
+
+
+def _child(which: str, path: Path) -> dict:
+    res = subprocess.run([sys.executable, "-c", _CHILD, which, str(path)], check=True,
+                         capture_output=True, text=True)
+    return json.loads(res.stdout.strip().splitlines()[-1])
+
+
+def main(argv: list[str] | None = None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--rows", type=float, default=1e7, help="production rows (default 1e7)")
+    ap.add_argument("--repeat", type=int, default=2, help="runs of each (best kept)")
+    ap.add_argument("--scratch", type=Path, default=HERE / "_scratch",
+                    help="where to write the generated files")
+    ap.add_argument("--keep", action="store_true", help="keep the generated files")
+    args = ap.parse_args(argv)
+    rows = int(args.rows)
+    log, bare = generate(args.scratch, rows)
+    print(f"data: {log} ({log.stat().st_size / 1e6:.0f} MB); load average "
+          f"{os.getloadavg()[0]:.2f}")
+    best: dict[str, dict] = {}
+    for _ in range(args.repeat):
+        for which, path in (("pandas", bare), ("green-kubo", log), ("gk+einstein", log)):
+            r = _child(which, path)
+            if which not in best or r["seconds"] < best[which]["seconds"]:
+                best[which] = r
+    base = best["pandas"]["seconds"]
+    print(f"\n{'what':<14}{'rows':>10}{'total s':>9}{'read s':>8}{'vs pandas':>11}"
+          f"{'peak extra MB':>15}")
+    for which, r in best.items():
+        print(f"{which:<14}{r['rows']:>10d}{r['seconds']:>9.2f}{r['read']:>8.2f}"
+              f"{r['seconds'] / base:>11.2f}{r['extra_kib'] * 1024 / 1e6:>15.0f}")
+    print(f"\ngoal: green-kubo end to end within 1.5x of pandas; load average now "
+          f"{os.getloadavg()[0]:.2f} (2 cores shared)")
+    if not args.keep:
+        for p in (log, bare, args.scratch / f"ok_{rows}"):
+            p.unlink(missing_ok=True)
+    return 0
+
+
+if __name__ == "__main__":
+    t0 = time.perf_counter()
+    sys.exit(main())
