@@ -62,6 +62,11 @@ _WEIGHTS_ALL = np.array([1.0, 1.0, 1.0, 2.0, 2.0, 2.0]) / 10.0
 #: Off-diagonal components only: eta = V/(3 kT) * integral of sum_{i<j} <P_ij(0) P_ij(t)>.
 _WEIGHTS_OFF = np.array([0.0, 0.0, 0.0, 1.0, 1.0, 1.0]) / 3.0
 
+#: Traceless symmetric components as linear combinations of (xx, yy, zz, xy, xz, yz):
+#: P°_ii = P_ii - tr(P)/3; off-diagonals unchanged.
+_TRACELESS = np.eye(6)
+_TRACELESS[:3, :3] -= 1.0 / 3.0
+
 #: Segments must be at least this many times the time at which the running integral levels
 #: off (rule stated in the issue; makes neighbouring segments nearly independent).
 SEGMENT_FACTOR = 10.0
@@ -118,7 +123,8 @@ def _weights(components: Components) -> np.ndarray:
 class _Piece:
     """One independent piece of data: a replica or a segment of one."""
 
-    stress: np.ndarray  # (6, L) traceless components, mean removed
+    stress: tuple[np.ndarray, ...]  # six raw pressure rows of L samples (views)
+    offset: np.ndarray  # (6,) subtracted from the traceless components (usually zero)
     prefactor: float  # V / (k_B T) in internal units
     replica: int
 
@@ -145,17 +151,20 @@ def _as_list(series: StressSeries | Sequence[StressSeries]) -> list[StressSeries
     return out
 
 
-def _level_off_time(p: np.ndarray, weights: np.ndarray, dt: float) -> float:
+def _level_off_time(
+    p: Sequence[np.ndarray], offset: np.ndarray, weights: np.ndarray, dt: float
+) -> float:
     """Time at which the stress autocorrelation has decayed (Sokal's automatic window).
 
     The window M is the smallest lag with M >= c * tau_int(M), c = 5, applied to the
     weighted sum of the component autocorrelations. The running integral has levelled off by
     then up to slow tails of weight below a few per cent.
     """
-    n = p.shape[-1]
+    n = p[0].shape[0]
     probe = min(n, 1 << 18)
     max_lag = max(8, probe // 4)
-    acf = weighted_autocorrelation(p[None, :, :probe], weights, max_lag=max_lag)[0]
+    acf = weighted_autocorrelation([[row[:probe] for row in p]], weights, max_lag=max_lag,
+                                   mix=_TRACELESS, offset=offset)[0]
     if not acf[0] > 0:
         return dt
     rho = acf / acf[0]
@@ -175,34 +184,49 @@ def _equilibration_start(pressure: np.ndarray) -> int:
     n = pressure.shape[1]
     block = max(1, -(-n // (1 << 15)))
     m = n // block
-    trace = (pressure[0, : m * block] + pressure[1, : m * block] + pressure[2, : m * block])
-    coarse = trace.reshape(m, block).mean(axis=1) / 3.0
+    coarse = sum(pressure[c, : m * block].reshape(m, block).mean(axis=1) for c in range(3))
+    coarse = coarse / 3.0
     if coarse.size < 16:
         return 0
     return int(detect_equilibration(coarse).start) * block
 
 
-def _remove_significant_mean(p: np.ndarray, weights: np.ndarray) -> str:
-    """Remove a component's mean only where it differs significantly from zero.
+def _check_fluctuates(rows: Sequence[np.ndarray], weights: np.ndarray) -> bool:
+    """True if some traceless component with nonzero weight varies (chunked, early exit)."""
+    n = rows[0].shape[0]
+    mix = _TRACELESS[weights > 0]
+    step = 1 << 16
+    for lo in range(0, n, step):
+        y = mix @ np.stack([r[lo: lo + step + 1] for r in rows])
+        if np.any(np.ptp(y, axis=1) > 0):
+            return True
+    return False
+
+
+def _significant_mean(rows: Sequence[np.ndarray], weights: np.ndarray) -> tuple[np.ndarray, str]:
+    """Mean of each traceless component, kept only where it differs significantly from 0.
 
     An isotropic liquid in equilibrium has zero mean traceless stress, so the Green–Kubo
     autocorrelation is computed without subtracting the sample mean: subtracting it biases
     the running integral low by about 2 eta t / T (t the lag, T the run length). A mean
-    beyond 4 correlation-aware standard errors (from the block variance of 20 blocks) is
-    removed and reported. Modifies `p` in place; returns the names of the shifted components.
+    beyond 4 correlation-aware standard errors (from the spread of 20 block means) is
+    removed and reported. Returns the offsets (zero where not significant) and the names of
+    the shifted components. Block means are taken on views: nothing of size N is allocated.
     """
     names = ("xx", "yy", "zz", "xy", "xz", "yz")
-    n = p.shape[1]
+    n = rows[0].shape[0]
     nb = 20
+    offset = np.zeros(6)
     if n < 20 * nb:
-        return ""
-    m = p.mean(axis=1)
-    blocks = p[:, : (n // nb) * nb].reshape(6, nb, -1).mean(axis=2)
+        return offset, ""
+    raw_blocks = np.stack([r[: (n // nb) * nb].reshape(nb, -1).mean(axis=1) for r in rows])
+    raw_means = np.array([float(r.mean()) for r in rows])
+    blocks = _TRACELESS @ raw_blocks
+    means = _TRACELESS @ raw_means
     se = blocks.std(axis=1, ddof=1) / np.sqrt(nb)
-    bad = (np.abs(m) > 4 * se) & (weights > 0)
-    if bad.any():
-        p[bad] -= m[bad, None]
-    return ", ".join(n_ for n_, b in zip(names, bad, strict=True) if b)
+    bad = (np.abs(means) > 4 * se) & (weights > 0)
+    offset[bad] = means[bad]
+    return offset, ", ".join(nm for nm, b in zip(names, bad, strict=True) if b)
 
 
 def _prepare(
@@ -232,7 +256,8 @@ def _prepare(
         )
     notes: list[str] = []
     skipped: list[float] = []
-    trimmed: list[np.ndarray] = []
+    trimmed: list[list[np.ndarray]] = []
+    offsets: list[np.ndarray] = []
     prefactors: list[float] = []
     for s in series:
         if s.temperature is None:
@@ -255,8 +280,17 @@ def _prepare(
                 fix="use a shorter --skip",
             )
         skipped.append(start * s.dt)
-        p = traceless_stress(s.pressure[:, start:])
-        shifted = _remove_significant_mean(p, weights)
+        p = [s.pressure[c, start:] for c in range(6)]  # views
+        if not _check_fluctuates(p, weights):
+            raise InputError(
+                "the traceless pressure tensor does not fluctuate (every component used is "
+                "constant)", path=s.source.path or None,
+                expected="pressure-tensor components that fluctuate in time",
+                fix="check the pressure columns (printed with enough digits? the full "
+                "pressure compute?)",
+            )
+        offset, shifted = _significant_mean(p, weights)
+        offsets.append(offset)
         if shifted:
             notes.append(
                 f"{s.source.path or 'series'}: mean traceless stress of {shifted} differs "
@@ -277,32 +311,34 @@ def _prepare(
                 )
 
     tscale, tunit = series[0].units.time_scale, series[0].units.time_unit
-    longest = max(trimmed, key=lambda a: a.shape[1])
-    t_level = _level_off_time(longest, weights, dt)
+    ilong = max(range(len(trimmed)), key=lambda i: trimmed[i][0].shape[0])
+    t_level = _level_off_time(trimmed[ilong], offsets[ilong], weights, dt)
     lvl = max(1, int(round(t_level / dt)))
     min_len = int(math.ceil(SEGMENT_FACTOR * lvl))
-    total = sum(a.shape[1] for a in trimmed)
+    total = sum(a[0].shape[0] for a in trimmed)
     target = n_pieces or TARGET_PIECES
     # segment length: as long as possible while giving about `target` pieces in all,
     # and never shorter than SEGMENT_FACTOR level-off times.
     seg_len = max(min_len, total // target)
-    seg_len = min(seg_len, max(a.shape[1] for a in trimmed))
+    seg_len = min(seg_len, max(a[0].shape[0] for a in trimmed))
     pieces: list[_Piece] = []
-    for r, (p, pref) in enumerate(zip(trimmed, prefactors, strict=True)):
-        k = p.shape[1] // seg_len
+    for r, (p, pref, off) in enumerate(zip(trimmed, prefactors, offsets, strict=True)):
+        length = p[0].shape[0]
+        k = length // seg_len
         if k == 0:
-            if p.shape[1] >= min_len:
-                pieces.append(_Piece(p, pref, r))
+            if length >= min_len:
+                pieces.append(_Piece(tuple(p), off, pref, r))
             continue
         for j in range(k):
-            pieces.append(_Piece(p[:, j * seg_len:(j + 1) * seg_len], pref, r))
-    if len(series) == 1 or any(a.shape[1] >= 2 * seg_len for a in trimmed):
+            pieces.append(_Piece(tuple(row[j * seg_len:(j + 1) * seg_len] for row in p),
+                                 off, pref, r))
+    if len(series) == 1 or any(a[0].shape[0] >= 2 * seg_len for a in trimmed):
         notes.append(
             f"{len(pieces)} independent pieces: {len(series)} replica(s) split into "
             f"segments of {seg_len} samples, {seg_len / lvl:.0f}x the time at which the "
             f"stress correlation has decayed ({t_level * tscale:.3g} {tunit})"
         )
-    shortest = min((pc.stress.shape[1] for pc in pieces), default=0)
+    shortest = min((pc.stress[0].shape[0] for pc in pieces), default=0)
     if max_lag is None:
         lag = min(shortest // 2, 50 * lvl) if shortest else 0
     else:
@@ -326,7 +362,6 @@ def _prepare(
 
 
 def _too_short(prep: _Prepared, series: list[StressSeries], what: str) -> RunTooShortError:
-    have = sum(pc.stress.shape[1] for pc in prep.pieces) * prep.dt
     have = sum(s.duration for s in series)
     need = MIN_PIECES * SEGMENT_FACTOR * prep.t_level
     u = series[0].units
@@ -489,7 +524,8 @@ def _running_integrals(prep: _Prepared, weights: np.ndarray) -> tuple[np.ndarray
     lag = prep.max_lag
     acfs = np.empty((len(prep.pieces), lag + 1))
     for i, pc in enumerate(prep.pieces):
-        acfs[i] = weighted_autocorrelation(pc.stress[None], weights, max_lag=lag)[0]
+        acfs[i] = weighted_autocorrelation([pc.stress], weights, max_lag=lag, mix=_TRACELESS,
+                                           offset=pc.offset)[0]
     pref = np.array([pc.prefactor for pc in prep.pieces])
     integ = np.zeros_like(acfs)
     # trapezoid rule: running integral of the sampled ACF
@@ -809,10 +845,10 @@ def _einstein(
     msd = np.empty((n, lag + 1))
     for i, pc in enumerate(prep.pieces):
         # Helfand moment: time integral of the stress (trapezoid), internal units
-        g = np.empty((6, pc.stress.shape[1]))
+        st = _TRACELESS @ np.stack(pc.stress) - pc.offset[:, None]
+        g = np.empty_like(st)
         g[:, 0] = 0.0
-        np.cumsum(0.5 * (pc.stress[:, 1:] + pc.stress[:, :-1]) * prep.dt, axis=1,
-                  out=g[:, 1:])
+        np.cumsum(0.5 * (st[:, 1:] + st[:, :-1]) * prep.dt, axis=1, out=g[:, 1:])
         msd[i] = weighted_msd(g[None], weights, max_lag=lag)[0] * pc.prefactor / 2.0
     if fit_window == "auto":
         # linear regime: from 3 Sokal windows (the stress correlation has decayed, also its

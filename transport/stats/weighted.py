@@ -12,77 +12,128 @@ The result is exact (to rounding): every pair (t, t + k) with t + k < N is count
 
 from __future__ import annotations
 
+from collections.abc import Sequence
+
 import numpy as np
 from scipy import fft as _fft
 
 __all__ = ["weighted_autocorrelation", "weighted_msd"]
 
 _TARGET_FFT = 1 << 16
-_BATCH_POINTS = 1 << 22  # points per batch of blocks (bounds the working memory)
+#: Blocks transformed per call: keeps every temporary below ~16 MB, so the allocator
+#: reuses memory instead of faulting in fresh pages for each batch.
+_BLOCKS_PER_BATCH = 4
 
 
-def _lag_sums(x: np.ndarray, weights: np.ndarray, max_lag: int, workers: int) -> np.ndarray:
-    """sum_c w_c sum_{t} x_c(t) x_c(t+k) for k = 0..max_lag, x of shape (C, N)."""
-    c, n = x.shape
+def _lag_sums(
+    x: Sequence[np.ndarray],
+    weights: np.ndarray,
+    max_lag: int,
+    workers: int,
+    mix: np.ndarray | None = None,
+    offset: np.ndarray | None = None,
+) -> np.ndarray:
+    """sum_c w_c sum_t y_c(t) y_c(t+k), k = 0..max_lag, with y = mix @ x - offset.
+
+    `x` holds C_in rows of N samples (views are fine: nothing of size N is allocated);
+    `mix` (C x C_in, default identity) and `offset` (C, default 0) are applied block by
+    block. A few blocks of ~2^16 samples are transformed at a time, so every temporary is a
+    few MB and is reused by the allocator instead of being faulted in afresh.
+    """
+    c_in, n = len(x), len(x[0])
+    if mix is None:
+        mix = np.eye(c_in)
     k = max_lag
     nfft = _fft.next_fast_len(max(min(_TARGET_FFT, n + k), 2 * (k + 1)), real=True)
     b = nfft - k  # block length: block + k following samples fit without wrap-around
     nblocks = -(-n // b)
+    sel = np.flatnonzero(np.asarray(weights) != 0.0)
+    w = np.asarray(weights, dtype=np.float64)[sel]
+    m = np.asarray(mix, dtype=np.float64)[sel]
+    off = None if offset is None else np.asarray(offset, dtype=np.float64)[sel, None]
     acc = np.zeros(nfft // 2 + 1, dtype=np.complex128)
-    per_batch = max(1, _BATCH_POINTS // (nfft * max(c, 1)))
-    wsel = [(i, float(w)) for i, w in enumerate(weights) if w != 0.0]
-    for j0 in range(0, nblocks, per_batch):
-        j1 = min(nblocks, j0 + per_batch)
+    per = _BLOCKS_PER_BATCH
+    raw = np.zeros((c_in, per * b + k))
+    for j0 in range(0, nblocks, per):
+        j1 = min(nblocks, j0 + per)
         start, stop = j0 * b, min(n, j1 * b + k)
-        seg = np.zeros((len(wsel), (j1 - j0) * b + k))
-        for r, (i, _) in enumerate(wsel):
-            seg[r, : stop - start] = x[i, start:stop]
-        # blocks: heads of length b (zero-padded to nfft) and tails of length b + k
-        heads = seg[:, : (j1 - j0) * b].reshape(len(wsel), j1 - j0, b)
-        tails = np.lib.stride_tricks.sliding_window_view(seg, b + k, axis=1)[:, ::b]
+        valid = stop - start
+        for i in range(c_in):
+            raw[i, :valid] = x[i][start:stop]
+        raw[:, valid:] = 0.0
+        y = m @ raw[:, : (j1 - j0) * b + k]
+        if off is not None:
+            y[:, :valid] -= off
+        # heads: blocks of b samples (zero-padded to nfft); tails: the same plus k more
+        heads = y[:, : (j1 - j0) * b].reshape(len(sel), j1 - j0, b)
+        tails = np.lib.stride_tricks.sliding_window_view(y, b + k, axis=1)[:, ::b]
         fa = _fft.rfft(heads, n=nfft, axis=-1, workers=workers)
         fb = _fft.rfft(tails, n=nfft, axis=-1, workers=workers)
-        prod = np.conj(fa) * fb  # (C, blocks, nfreq)
-        w = np.array([wv for _, wv in wsel])
-        acc += np.einsum("c,cbf->f", w, prod)
-    out = _fft.irfft(acc, n=nfft, workers=workers)[: k + 1]
-    return out
+        fb *= np.conj(fa)
+        acc += np.einsum("c,cbf->f", w, fb)
+    return _fft.irfft(acc, n=nfft, workers=workers)[: k + 1]
 
 
 def weighted_autocorrelation(
-    x: np.ndarray, weights: np.ndarray, *, max_lag: int, workers: int = 2
+    x: np.ndarray | Sequence[Sequence[np.ndarray]],
+    weights: np.ndarray,
+    *,
+    max_lag: int,
+    workers: int = 2,
+    mix: np.ndarray | None = None,
+    offset: np.ndarray | None = None,
 ) -> np.ndarray:
     """Weighted sum over components of autocovariances, divided by the number of pairs.
 
     Parameters
     ----------
-    x : ndarray, shape (S, C, N)
+    x : ndarray, shape (S, C, N), or S sequences of C 1-D arrays of length N
         S independent series of C components each (means already removed if wanted).
+        Rows given as separate arrays (views, for example) are not copied.
     weights : ndarray, shape (C,)
         Weight of each component's autocorrelation in the sum.
     max_lag : int
         Largest lag, in samples (< N).
     workers : int
         Threads for scipy.fft.
+    mix : ndarray, shape (C, C_in), optional
+        Correlate the linear combinations ``mix @ x`` of the C_in input rows instead of the
+        rows themselves (computed block by block, never for the whole series).
+    offset : ndarray, shape (C,), optional
+        Subtracted from each combination before correlating.
 
     Returns
     -------
     ndarray, shape (S, max_lag + 1)
-        ``sum_c w_c (1/(N-k)) sum_{t=0}^{N-k-1} x_c(t) x_c(t+k)``.
+        ``sum_c w_c (1/(N-k)) sum_{t=0}^{N-k-1} y_c(t) y_c(t+k)``, y = mix @ x - offset.
     """
-    x = np.asarray(x, dtype=np.float64)
-    if x.ndim != 3:
-        raise ValueError(f"x must have shape (series, components, samples), got {x.shape}")
-    s, c, n = x.shape
+    series = _as_rows(x)
     weights = np.asarray(weights, dtype=np.float64)
-    if weights.shape != (c,):
-        raise ValueError(f"weights must have shape ({c},), got {weights.shape}")
-    if not 0 <= max_lag < n:
-        raise ValueError(f"max_lag must lie in [0, {n - 1}], got {max_lag}")
-    pairs = n - np.arange(max_lag + 1)
-    out = np.empty((s, max_lag + 1))
-    for i in range(s):
-        out[i] = _lag_sums(x[i], weights, max_lag, workers) / pairs
+    out = np.empty((len(series), max_lag + 1))
+    for i, rows in enumerate(series):
+        n = len(rows[0])
+        c = len(rows) if mix is None else np.shape(mix)[0]
+        if weights.shape != (c,):
+            raise ValueError(f"weights must have shape ({c},), got {weights.shape}")
+        if not 0 <= max_lag < n:
+            raise ValueError(f"max_lag must lie in [0, {n - 1}], got {max_lag}")
+        pairs = n - np.arange(max_lag + 1)
+        out[i] = _lag_sums(rows, weights, max_lag, workers, mix, offset) / pairs
+    return out
+
+
+def _as_rows(x: np.ndarray | Sequence[Sequence[np.ndarray]]) -> list[list[np.ndarray]]:
+    """S series of C equal-length 1-D float64 rows, without copying contiguous input."""
+    if isinstance(x, np.ndarray):
+        if x.ndim != 3:
+            raise ValueError(f"x must have shape (series, components, samples), got {x.shape}")
+        return [[np.asarray(r, dtype=np.float64) for r in xi] for xi in x]
+    out = []
+    for xi in x:
+        rows = [np.asarray(r, dtype=np.float64) for r in xi]
+        if not rows or any(r.ndim != 1 or r.shape != rows[0].shape for r in rows):
+            raise ValueError("each series must be C one-dimensional rows of equal length")
+        out.append(rows)
     return out
 
 
