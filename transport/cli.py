@@ -2,11 +2,14 @@
 
 Every failure caused by the input is one line on standard error naming the file, the line,
 what was expected and the fix, with exit code 2 and no traceback (``--debug`` shows it).
-Output files (``--json``, ``--plot``) are written only after every computation succeeded.
+Output files (``--json``, ``--plot``) are written only after every computation succeeded;
+missing folders on their paths are then created. An output path that is one of the inputs,
+or that runs through an existing file, is refused before anything is read.
 """
 
 from __future__ import annotations
 
+import math
 from collections.abc import Callable
 from typing import Any
 
@@ -25,8 +28,30 @@ class _InputFailure(click.ClickException):
         click.echo(f"transport: error: {self.format_message()}", err=True)
 
 
+# click >= 8.2 shows the help of a command called without arguments through this error
+_NoArgsIsHelp: type = getattr(click.exceptions, "NoArgsIsHelpError", _InputFailure)
+
+
+class _UsageFailure(click.UsageError):
+    """A usage error shown as one line (click's default is usage text plus the error)."""
+
+    def show(self, file: Any = None) -> None:
+        where = self.ctx.command_path if self.ctx is not None else "transport"
+        msg = " ".join(self.format_message().split())
+        click.echo(f"transport: error: {msg} (see '{where} --help')", err=True)
+
+
 class _Group(click.Group):
     """Click group that turns library errors into one-line messages."""
+
+    def make_context(self, info_name: str | None, args: list[str],
+                     parent: click.Context | None = None, **extra: Any) -> click.Context:
+        try:
+            return super().make_context(info_name, args, parent=parent, **extra)
+        except click.UsageError as exc:  # the group's own options (transport --bogus)
+            if isinstance(exc, (_UsageFailure, _NoArgsIsHelp)):
+                raise  # without arguments the help is shown, as click does
+            raise _UsageFailure(exc.format_message(), exc.ctx) from None
 
     def invoke(self, ctx: click.Context) -> Any:
         debug = bool(ctx.params.get("debug"))
@@ -36,6 +61,10 @@ class _Group(click.Group):
             if debug:
                 raise
             raise _InputFailure(exc.one_line()) from None
+        except click.UsageError as exc:
+            if debug or isinstance(exc, (_UsageFailure, _NoArgsIsHelp)):
+                raise
+            raise _UsageFailure(exc.format_message(), exc.ctx) from None
         except (click.ClickException, click.exceptions.Exit, click.Abort, KeyboardInterrupt):
             raise
         except MemoryError:
@@ -75,7 +104,8 @@ def json_option(f: Callable) -> Callable:
     """``--json PATH`` (``-`` for standard output)."""
     return click.option(
         "--json", "json_path", type=click.Path(dir_okay=False, allow_dash=True),
-        default=None, help="Write the results as JSON to PATH ('-' for stdout).",
+        default=None, help="Write the results as JSON to PATH ('-' for stdout); missing folders "
+             "are created.",
     )(f)
 
 
@@ -83,7 +113,8 @@ def plot_option(f: Callable) -> Callable:
     """``--plot PATH``: a figure (format from the suffix: .png, .pdf, .svg)."""
     return click.option(
         "--plot", "plot_path", type=click.Path(dir_okay=False), default=None,
-        help="Write diagnostic plots to PATH (.png, .pdf or .svg).",
+        help="Write diagnostic plots to PATH (.png, .pdf or .svg); missing folders "
+             "are created.",
     )(f)
 
 
@@ -97,7 +128,7 @@ def _note(ctx: click.Context, text: str) -> None:
         click.echo(text, err=True)
 
 
-def _parse_time(value: str | None, option: str) -> float | None:
+def _parse_time(value: str | None, option: str, *, positive: bool = False) -> float | None:
     """Parse a time given on the command line (in the reported time unit: ps, or tau)."""
     if value is None or value == "auto":
         return None
@@ -106,10 +137,87 @@ def _parse_time(value: str | None, option: str) -> float | None:
     except ValueError:
         raise click.BadParameter(f"expected a number or 'auto', got {value!r}",
                                  param_hint=option) from None
-    if not t >= 0:
-        raise click.BadParameter(f"expected a non-negative time, got {value!r}",
+    if not (math.isfinite(t) and (t > 0 if positive else t >= 0)):
+        word = "positive" if positive else "non-negative"
+        raise click.BadParameter(f"expected a finite {word} time, got {value!r}",
                                  param_hint=option)
     return t
+
+
+def _check_outputs(inputs: tuple[str, ...], **outputs: str | None) -> None:
+    """Refuse output paths that would overwrite an input or cannot be created.
+
+    Called before anything is read, so that a bad path costs nothing. A missing folder is
+    created when the output is written (after every computation succeeded).
+    """
+    import os
+    from pathlib import Path
+
+    given = {opt: out for opt, out in outputs.items() if out is not None and out != "-"}
+    seen: dict[Path, str] = {}
+    for opt, out in given.items():
+        hint = "--" + opt.replace("_", "-")
+        target = Path(out).resolve()
+        for f in inputs:
+            same = Path(f).resolve() == target or (
+                target.exists() and Path(f).exists() and os.path.samefile(f, target))
+            if same:
+                raise click.BadParameter(
+                    f"{out!r} is an input file and would be overwritten; give another path",
+                    param_hint=hint)
+        if target in seen:
+            raise click.BadParameter(f"{out!r} is also given to {seen[target]}",
+                                     param_hint=hint)
+        seen[target] = hint
+        parent = target.parent
+        while not parent.exists() and parent != parent.parent:
+            parent = parent.parent
+        if not parent.is_dir():
+            raise click.BadParameter(
+                f"cannot create {out!r}: {str(parent)!r} is a file, not a folder",
+                param_hint=hint)
+        if not os.access(parent, os.W_OK | os.X_OK):
+            raise click.BadParameter(
+                f"cannot create {out!r}: no permission to write in {str(parent)!r}",
+                param_hint=hint)
+
+
+def _check_distinct(files: tuple[str, ...]) -> None:
+    """The same file given twice would count one run as two independent replicas."""
+    from pathlib import Path
+
+    seen: dict[Path, str] = {}
+    for f in files:
+        key = Path(f).resolve()
+        if key in seen:
+            raise InputError(
+                f"given twice (also as {seen[key]!r})", path=f,
+                expected="each replica once",
+                fix="remove the repeated file: a copy is not an independent replica")
+        seen[key] = f
+
+
+def _write_outputs(fig: Any, plot_path: str | None, doc: Any, json_path: str | None) -> None:
+    """Write the figure and the JSON document; a failure is one line, exit code 2."""
+    from pathlib import Path
+
+    from .report.figures import save_figure
+    from .report.jsonout import write_json
+
+    written = None
+    try:
+        if fig is not None:
+            save_figure(fig, plot_path)  # type: ignore[arg-type]
+            written = plot_path
+        if doc is not None:
+            write_json(doc, json_path)  # type: ignore[arg-type]
+    except OSError as exc:
+        if written is not None:  # all or nothing
+            Path(written).unlink(missing_ok=True)
+        name = exc.filename or (plot_path if written is None else json_path)
+        raise _InputFailure(
+            f"{name}: cannot write the output ({exc.strerror or exc}); fix: check the "
+            "path, the permissions and the free disk space") from None
 
 
 # ---- commands are registered below (one block per command) -----------------------------
@@ -149,7 +257,7 @@ def _load_stress_files(ctx: click.Context, files: tuple[str, ...], **kw: Any) ->
 
 
 @main.command()
-@click.argument("files", nargs=-1, required=True, type=click.Path(dir_okay=False))
+@click.argument("files", nargs=-1, required=True, type=click.Path())
 @_stress_options
 @click.option("--method", type=click.Choice(["green-kubo", "einstein", "both"]),
               default="green-kubo", show_default=True, help="Estimator(s) to report.")
@@ -174,7 +282,7 @@ def viscosity(ctx: click.Context, files: tuple[str, ...], units: str | None,
               plot_path: str | None) -> None:
     """Shear viscosity from the pressure tensor in FILES (several files = replicas)."""
     from .report.figures import plot_format
-    from .report.jsonout import build_document, write_json
+    from .report.jsonout import build_document
     from .report.text import format_estimates
     from .viscosity import analyse_viscosity
 
@@ -183,8 +291,9 @@ def viscosity(ctx: click.Context, files: tuple[str, ...], units: str | None,
             plot_format(plot_path)
         except ValueError as exc:
             raise click.BadParameter(str(exc), param_hint="--plot") from None
-    cut_t = _parse_time(cutoff, "--cutoff")
-    lag_t = _parse_time(max_lag, "--max-lag")
+    _check_outputs(files, json=json_path, plot=plot_path)
+    cut_t = _parse_time(cutoff, "--cutoff", positive=True)
+    lag_t = _parse_time(max_lag, "--max-lag", positive=True)
     skip_t = None if skip == "auto" else _parse_time(skip, "--skip")
     window = None
     if fit_window != "auto":
@@ -193,7 +302,11 @@ def viscosity(ctx: click.Context, files: tuple[str, ...], units: str | None,
         except ValueError:
             raise click.BadParameter(f"expected 'auto' or T0:T1, got {fit_window!r}",
                                      param_hint="--fit-window") from None
+        if not (math.isfinite(b) and 0 <= a < b):
+            raise click.BadParameter(f"expected 0 <= T0 < T1 (finite), got {fit_window!r}",
+                                     param_hint="--fit-window")
         window = (a, b)
+    _check_distinct(files)
     series = _load_stress_files(ctx, files, units=units, timestep=timestep,
                                 temperature=temperature, volume=volume, run=run)
     ts = series[0].units.time_scale  # reported time unit -> internal: divide by ts
@@ -224,12 +337,7 @@ def viscosity(ctx: click.Context, files: tuple[str, ...], units: str | None,
                     "volume": volume, "timestep": timestep, "run": run}
         doc = build_document("viscosity", inputs=[s.source for s in series],
                              settings=settings, results=est)
-    if fig is not None:
-        from .report.figures import save_figure
-
-        save_figure(fig, plot_path)
-    if doc is not None:
-        write_json(doc, json_path)
+    _write_outputs(fig, plot_path, doc, json_path)
     if json_path != "-":
         click.echo(format_estimates(est, title=title))
 
@@ -253,7 +361,7 @@ def demo(ctx: click.Context, out: str, seed: int) -> None:
 # ---- inspect -----------------------------------------------------------------------------
 
 @main.command("inspect")
-@click.argument("file", type=click.Path(dir_okay=False))
+@click.argument("file", type=click.Path())
 @click.option("--run", "run", default=None,
               help="Thermo run (block) to use: N (1-based), A-B (joined), 'last' or 'all'; "
                    "default: the last with the pressure tensor, joined with the runs it "
@@ -273,12 +381,13 @@ def inspect_file(ctx: click.Context, file: str, run: str | None, units: str | No
     from ._progress import want_progress
     from .io import parse_run, read_table
     from .io._inspect import describe_table, stress_summary
-    from .report.jsonout import build_document, write_json
+    from .report.jsonout import build_document
 
     try:
         run_spec = parse_run(run)
     except ValueError as exc:
         raise click.BadParameter(str(exc), param_hint="--run") from None
+    _check_outputs((file,), json=json_path)
     table = read_table(file, run=run_spec, units=units, timestep=timestep,
                        progress=want_progress(_quiet(ctx)))
     summary = stress_summary(table)
@@ -301,7 +410,7 @@ def inspect_file(ctx: click.Context, file: str, run: str | None, units: str | No
                 },
             },
         )
-        write_json(doc, json_path)
+        _write_outputs(None, None, doc, json_path)
     if json_path != "-":
         click.echo(text)
 
@@ -335,10 +444,12 @@ def _average_column_name(table: Any, name: str) -> str:
 
 
 def _average_check_finite(table: Any, column: str, x: Any) -> None:
-    """InputError naming the file line of the first non-finite value of a column."""
+    """InputError naming the file line of the first non-finite value of a column, or of
+    the first value so large that sums of squares overflow double precision."""
     import numpy as np
 
-    bad = np.flatnonzero(~np.isfinite(x))
+    limit = math.sqrt(np.finfo(np.float64).max / max(x.size, 1)) / 10
+    bad = np.flatnonzero(~(np.abs(x) < limit))
     if bad.size == 0:
         return
     row = int(bad[0])
@@ -346,10 +457,16 @@ def _average_check_finite(table: Any, column: str, x: Any) -> None:
     for first_row, first_line in getattr(table, "line_map", ()):
         if first_row <= row:
             line = first_line + row - first_row
+    if np.isfinite(x[row]):
+        what = (f"a value too large to analyse ({x[row]:.3g}; its square overflows double "
+                "precision)")
+        expected = f"values below {limit:.1e} in magnitude"
+    else:
+        what, expected = f"a non-finite value ({x[row]})", "a number in every row"
     raise InputError(
-        f"column {column!r} has a non-finite value ({x[row]}) in row {row + 1}",
+        f"column {column!r} has {what} in row {row + 1}",
         path=table.source.path or None, line=line,
-        expected="a number in every row", fix="repair or remove the damaged rows",
+        expected=expected, fix="repair or remove the damaged rows",
     )
 
 
@@ -363,12 +480,22 @@ def _average_time_axis(table: Any) -> tuple[float | None, float, str]:
     steps = np.diff(t)
     dt = float((t[-1] - t[0]) / (t.size - 1))
     if not dt > 0 or np.max(np.abs(steps - dt)) > 1e-6 * dt:
+        typical = float(np.median(steps))
+        off = np.flatnonzero(~(np.abs(steps - typical) <= 1e-6 * abs(typical)))
+        row = int(off[0]) + 1 if off.size else 1
+        u = table.units.time_unit
+        if steps[row - 1] == 0:
+            what = f"time {t[row]:.10g} {u} is repeated"
+        elif not typical > 0:
+            what = "time does not increase"
+        else:
+            what = (f"time jumps from {t[row - 1]:.10g} to {t[row]:.10g} {u} (the interval "
+                    f"elsewhere is {typical:.6g} {u})")
         raise InputError(
-            f"rows are not evenly spaced in time (interval {steps.min():.6g} to "
-            f"{steps.max():.6g} {table.units.time_unit})",
-            path=table.source.path or None,
+            f"rows are not evenly spaced in time: {what}",
+            path=table.source.path or None, line=table.line_of(row),
             expected="a constant output interval",
-            fix="choose one thermo run with --run",
+            fix="choose one thermo run with --run, or remove the rows out of sequence",
         )
     return dt, float(t[0]), table.units.time_unit
 
@@ -401,7 +528,7 @@ def _average_table_text(rows: list[tuple[str, Any]]) -> str:
 
 
 @main.command()
-@click.argument("files", nargs=-1, required=True, type=click.Path(dir_okay=False))
+@click.argument("files", nargs=-1, required=True, type=click.Path())
 @click.option("--column", "columns", multiple=True, required=True,
               help="Column to average, by its name in the file (or a canonical name such "
                    "as density, press, temperature); repeat for several.")
@@ -435,7 +562,7 @@ def average(ctx: click.Context, files: tuple[str, ...], columns: tuple[str, ...]
     from ._progress import want_progress
     from .io import parse_run, read_table
     from .report.figures import plot_format
-    from .report.jsonout import build_document, write_json
+    from .report.jsonout import build_document
     from .stats import combine_replicas, mean_with_error
 
     if plot_path is not None:
@@ -448,6 +575,9 @@ def average(ctx: click.Context, files: tuple[str, ...], columns: tuple[str, ...]
     except ValueError as exc:
         raise click.BadParameter(str(exc), param_hint="--run") from None
     skip_t = None if skip == "auto" else _parse_time(skip, "--skip")
+    _check_outputs(files, json=json_path, plot=plot_path)
+    if replicas:
+        _check_distinct(files)
 
     tables = [read_table(f, run=run_spec, units=units, timestep=timestep,
                          progress=want_progress(_quiet(ctx))) for f in files]
@@ -465,6 +595,13 @@ def average(ctx: click.Context, files: tuple[str, ...], columns: tuple[str, ...]
                     fix="pass --column with one of these names",
                 ) from None
             col = _average_column_name(table, name)
+            dup = f"duplicate column name {col!r}"
+            for b in table.blocks:
+                if b.used and any(nt.startswith(dup) for nt in b.notes):
+                    raise InputError(
+                        f"column name {col!r} appears more than once in the header",
+                        path=path, line=b.header_line, expected="distinct column names",
+                        fix="rename or remove the repeated column")
             _average_check_finite(table, col, x)
             if skip_t is None:
                 skip_n: str | int | None = "auto"
@@ -506,12 +643,7 @@ def average(ctx: click.Context, files: tuple[str, ...], columns: tuple[str, ...]
         doc = build_document("average", inputs=[t.source for t in tables], settings=settings,
                              results=[e for _, e in rows],
                              warnings=[*(w for t in tables for w in t.warnings), *notes])
-    if fig is not None:
-        from .report.figures import save_figure
-
-        save_figure(fig, plot_path)
-    if doc is not None:
-        write_json(doc, json_path)
+    _write_outputs(fig, plot_path, doc, json_path)
     for w in dict.fromkeys(w for t in tables for w in t.warnings):
         _note(ctx, f"transport: note: {w}")
     for n in notes:
@@ -608,6 +740,8 @@ def diffusion(ctx: click.Context, topology: str, trajectories: tuple[str, ...], 
             get_unit_system(units)
         except ValueError as exc:
             raise click.BadParameter(str(exc), param_hint="--units") from None
+    _check_outputs((topology, *trajectories), json=json_path, plot=plot_path)
+    _check_distinct(trajectories)
     ts = 1.0 if units is not None and get_unit_system(units).reduced else 1e12
     window = _diffusion_window(fit_window, ts)
     skip_t = _parse_time(skip, "--skip") or 0.0

@@ -297,6 +297,10 @@ def _read(
                 retry = scan(op, mode="table", want=want_fn, progress=progress)
             if any(b.n for b in retry.blocks):
                 fmt, result = "table", retry
+        suffix = p.suffix.lower()
+        if comp is None and suffix in (".gz", ".bz2", ".xz"):
+            result.warnings.append(
+                f"{spath}: named {suffix} but not compressed; read as plain text")
         return assemble(result, path=p, fmt=fmt, run=run_spec, units=units,
                         timestep=timestep, sha256=digest.result(), compression=comp,
                         with_time=want is None)

@@ -214,6 +214,26 @@ def assemble(
     word = "thermo run" if is_log else "block"
     blocks = scan.blocks
     nonempty = [b for b in blocks if b.n > 0]
+
+    def orphan_error() -> InputError | None:
+        """The error for a header that took no rows (rows that do not match it, or none)."""
+        if scan.orphan_header is None:
+            return None
+        ln, text = scan.orphan_header
+        if scan.orphan_detail:
+            return InputError(
+                f"header {text[:60]!r} does not match its rows: {scan.orphan_detail}",
+                path=spath, line=ln, expected="one name in the header for each value in a row",
+                fix="repair the header (a column name missing or extra?) or the rows",
+            )
+        if is_log:
+            return InputError(
+                f"header {text[:60]!r} has no rows of numbers after it", path=spath, line=ln,
+                expected="rows of numbers under the header",
+                fix="check that the run produced output (a crashed or empty run?)",
+            )
+        return None
+
     if not nonempty:
         if blocks:
             b = blocks[0]
@@ -222,13 +242,9 @@ def assemble(
                 expected=f"rows of {b.ncols} numbers under the header",
                 fix="check that the run produced output (a crashed or empty run?)",
             )
-        if is_log and scan.orphan_header is not None:
-            ln, text = scan.orphan_header
-            raise InputError(
-                f"header {text[:60]!r} has no rows of numbers after it", path=spath, line=ln,
-                expected="rows of numbers under the header",
-                fix="check that the run produced output (a crashed or empty run?)",
-            )
+        err = orphan_error()
+        if err is not None:
+            raise err
         if is_log:
             raise InputError(
                 "no thermo output found", path=spath,
@@ -253,8 +269,18 @@ def assemble(
     # ---- choose blocks -----------------------------------------------------------------
     chosen: list[ScanBlock]
     how: str
+    # A header after the last rows that took no rows of its own: the run that matters most
+    # (the last) is damaged or empty. Refused when no earlier run has the pressure tensor
+    # to fall back on, else used with a warning.
+    late_orphan = orphan_error() if scan.orphan_header is not None and \
+        scan.orphan_header[0] > max(b.last_line or 0 for b in nonempty) else None
+    if late_orphan is not None and not scan.orphan_detail:
+        warnings.append(f"{spath}: the header at line {late_orphan.line} has no rows of "
+                        "numbers after it (the last run stopped before its first output?)")
     if run is None:
         with_tensor = [b for b in nonempty if has_tensor(b) and b.kind != "minimize"]
+        if late_orphan is not None and not with_tensor:
+            raise late_orphan
         pool = with_tensor or [b for b in nonempty if b.kind != "minimize"] or nonempty
         chosen = [pool[-1]]
         superseded: list[ScanBlock] = []

@@ -8,6 +8,7 @@ import shutil
 import tempfile
 import warnings
 import zipfile
+import zlib
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -15,7 +16,7 @@ import numpy as np
 
 from ..errors import InputError
 from ..series import Source
-from ._open import open_bytes
+from ._open import DECOMPRESSION_ERRORS, open_bytes
 
 if TYPE_CHECKING:
     from . import BlockInfo
@@ -29,7 +30,7 @@ def _decompressed(path: Path, compression: str | None) -> io.BytesIO | Path:
     with open_bytes(path) as op:
         try:
             return io.BytesIO(op.stream.read())
-        except (OSError, EOFError) as exc:
+        except DECOMPRESSION_ERRORS as exc:
             raise InputError(f"cannot be decompressed ({exc})", path=str(path),
                              fix="check that the file was copied completely") from None
 
@@ -82,7 +83,7 @@ def read_numpy(path: Path, fmt: str, compression: str | None) -> tuple[
                     columns[name] = np.ascontiguousarray(a, dtype=np.float64)
     except InputError:
         raise
-    except (ValueError, OSError, EOFError, zipfile.BadZipFile) as exc:
+    except (ValueError, OSError, EOFError, zipfile.BadZipFile, zlib.error) as exc:
         raise InputError(f"cannot be read as a NumPy {fmt} file ({exc})", path=spath,
                          fix="check that the file was written completely") from None
     if not columns:
@@ -115,7 +116,7 @@ def read_edr(path: Path, compression: str | None) -> dict[str, np.ndarray]:
         with open_bytes(path) as op, open(target, "wb") as out:
             try:
                 shutil.copyfileobj(op.stream, out, 1 << 22)
-            except (OSError, EOFError) as exc:
+            except DECOMPRESSION_ERRORS as exc:
                 shutil.rmtree(tmpdir, ignore_errors=True)
                 raise InputError(f"cannot be decompressed ({exc})", path=spath,
                                  fix="check that the file was copied completely") from None

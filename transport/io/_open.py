@@ -9,13 +9,14 @@ import lzma
 import os
 import re
 import threading
+import zlib
 from dataclasses import dataclass
 from pathlib import Path
 from typing import IO
 
 from ..errors import InputError
 
-__all__ = ["FileHash", "Opened", "check_path", "open_bytes", "sniff"]
+__all__ = ["DECOMPRESSION_ERRORS", "FileHash", "Opened", "check_path", "open_bytes", "sniff"]
 
 _MAGIC = {
     "gzip": b"\x1f\x8b",
@@ -26,6 +27,9 @@ _SUFFIX_COMPRESSION = {".gz": "gzip", ".bz2": "bzip2", ".xz": "xz"}
 _EDR_MAGIC = b"\xff\xff\x26\xfd"  # -55555 as a big-endian (XDR) int: the frame magic
 _NPY_MAGIC = b"\x93NUMPY"
 _ZIP_MAGIC = b"PK\x03\x04"
+
+#: What reading a damaged compressed stream raises (zlib.error for corrupt gzip data).
+DECOMPRESSION_ERRORS = (OSError, EOFError, lzma.LZMAError, zlib.error)
 
 #: Formats :func:`sniff` can return.
 FORMATS = ("lammps-log", "table", "npy", "npz", "edr")
@@ -142,7 +146,7 @@ def read_head(path: Path, n: int = 1 << 16) -> tuple[bytes, str | None]:
     with open_bytes(path) as op:
         try:
             head = op.stream.read(n)
-        except (OSError, EOFError, lzma.LZMAError) as exc:
+        except DECOMPRESSION_ERRORS as exc:
             raise InputError(
                 f"cannot be decompressed as {op.compression} ({exc})", path=str(path),
                 fix="check that the file was copied completely",
@@ -182,17 +186,55 @@ def sniff(path: Path) -> tuple[str, str | None]:
         return "edr", comp
     sample = head[:8192]
     if b"\x00" in sample or _binary_fraction(sample) > 0.05:
+        encoding = _wide_text(sample)
+        if encoding is not None:
+            raise InputError(
+                f"is {encoding} text", path=str(path),
+                expected="text in UTF-8 (or ASCII)",
+                fix=f"convert it, e.g. iconv -f {encoding} -t UTF-8 IN > OUT",
+            )
+        suffix_comp = next((c for suf, c in _SUFFIX_COMPRESSION.items()
+                            if path.name.lower().endswith(suf)), None)
+        if suffix_comp is not None and comp is None:
+            raise InputError(
+                f"is named like a {suffix_comp} file but is not {suffix_comp}-compressed, "
+                "nor text", path=str(path),
+                expected=f"{suffix_comp}-compressed text, a thermo log or a table",
+                fix="check that the file was copied completely, or give the original file",
+            )
         raise InputError(
             "is not a text file and not a known binary format",
             path=str(path),
             expected="a thermo log, a text/CSV table with a header, .npy, .npz or .edr",
             fix="give the engine's log or an exported table",
         )
+    if b"\r" in sample and b"\n" not in sample:
+        raise InputError(
+            "has lines ended by a carriage return alone (old Mac style)", path=str(path),
+            expected="lines ended by LF (Unix) or CR LF (Windows)",
+            fix="convert the line endings, e.g. tr '\\r' '\\n' < IN > OUT",
+        )
     if _LOG_MARKERS.search(head):
         return "lammps-log", comp
     if name.startswith("log.") or name.endswith((".log", ".lammps")):
         return "lammps-log", comp
     return "table", comp
+
+
+def _wide_text(sample: bytes) -> str | None:
+    """``UTF-16LE``/``UTF-16BE``/``UTF-32...`` if `sample` looks like such text, else None."""
+    boms = ((b"\xff\xfe\x00\x00", "UTF-32LE"), (b"\x00\x00\xfe\xff", "UTF-32BE"),
+            (b"\xff\xfe", "UTF-16LE"), (b"\xfe\xff", "UTF-16BE"))
+    for bom, name in boms:
+        if sample.startswith(bom):
+            return name
+    even, odd = sample[0::2], sample[1::2]
+    if len(sample) >= 16:
+        if odd.count(0) > 0.9 * len(odd) and even.count(0) < 0.1 * len(even):
+            return "UTF-16LE"
+        if even.count(0) > 0.9 * len(even) and odd.count(0) < 0.1 * len(odd):
+            return "UTF-16BE"
+    return None
 
 
 def _binary_fraction(sample: bytes) -> float:

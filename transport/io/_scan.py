@@ -20,7 +20,6 @@ import csv
 import re
 from collections.abc import Callable
 from dataclasses import dataclass, field
-from lzma import LZMAError as lzma_error
 from typing import Any
 
 import numpy as np
@@ -29,7 +28,7 @@ import pandas as pd
 from .._progress import progress_bar
 from ..errors import InputError
 from ._columns import TENSOR_ORDER, map_columns
-from ._open import Opened
+from ._open import DECOMPRESSION_ERRORS, Opened
 
 __all__ = ["ScanBlock", "ScanResult", "scan"]
 
@@ -153,6 +152,7 @@ class ScanResult:
     warnings: list[str]
     ended_incomplete: bool = False
     orphan_header: tuple[int, str] | None = None
+    orphan_detail: str = ""  # why the orphan header took no rows, when known
 
 
 def _unique(names: list[str]) -> list[str]:
@@ -213,6 +213,8 @@ class _Scanner:
         self.buf = bytearray(b"\n")
         self.remaining_hint = opened.size if opened.compression is None else 0
         self.orphan: tuple[int, str] | None = None
+        self.orphan_detail = ""
+        self.mismatch: tuple[int, int] | None = None  # (names, values) of a failed header
 
     # ---- helpers ---------------------------------------------------------------------
     def _err(self, message: str, line: int | None, **kw: Any) -> InputError:
@@ -253,6 +255,8 @@ class _Scanner:
                 return None
         ntok = len(_split_fields(nxt_s, sep))
         if ntok != len(toks):
+            if all(_is_number(t) for t in _split_fields(nxt_s, sep)):
+                self.mismatch = (len(toks), ntok)
             return None
         # All values on the data line must look like numbers.
         if not all(_is_number(t) for t in _split_fields(nxt_s, sep)):
@@ -354,8 +358,20 @@ class _Scanner:
 
     # ---- blocks ------------------------------------------------------------------------
     def _open_block(self, line: int, names: list[str], sep: str, trailing: bool) -> None:
-        names = _unique(names)
+        from ._columns import canonical_name
+
         notes: list[str] = []
+        for nm in dict.fromkeys(n for n in names if names.count(n) > 1):
+            where = [i + 1 for i, n in enumerate(names) if n == nm]
+            if canonical_name(nm) is not None:
+                raise self._err(
+                    f"column name {nm!r} appears {len(where)} times in the header (columns "
+                    f"{', '.join(map(str, where))}): which one is meant is ambiguous", line,
+                    expected="distinct column names", fix="rename or remove the repeated column")
+            notes.append(f"duplicate column name {nm!r} (columns "
+                         f"{', '.join(map(str, where))}): the repeats are read as "
+                         f"{nm}.1, {nm}.2, ...")
+        names = _unique(names)
         if self.mode == "log":
             aliases = self._log_aliases(names, notes)
             ctx = self.ctx.copy()
@@ -601,7 +617,7 @@ class _Scanner:
                     self.buf.extend(bytes(len(self.buf)))
                 try:
                     got = _fill(stream, self.buf, fill)
-                except (OSError, EOFError, lzma_error) as exc:
+                except DECOMPRESSION_ERRORS as exc:
                     raise self._err(
                         f"cannot be decompressed ({exc})", None,
                         fix="check that the file was copied completely",
@@ -650,7 +666,7 @@ class _Scanner:
         lines = line_base - 1 + (1 if incomplete else 0)
         self.buf = bytearray()
         return ScanResult(self.blocks, lines, self.ctx, self.notes, self.warnings, incomplete,
-                          self.orphan)
+                          self.orphan, self.orphan_detail)
 
     def _process(self, k: int, line_base: int) -> int:
         """Handle the lines in buf[1:k] (buf[0] and buf[k] are newlines).
@@ -691,8 +707,16 @@ class _Scanner:
         hdr = None
         may_be_header = bool(stripped) and not stripped.startswith(("WARNING", "ERROR")) and (
             self.mode == "table" or not stripped.startswith("#"))
+        self.mismatch = None
         if may_be_header:
             hdr = self._header_tokens(text, nxt)
+        if hdr is None and blk is None and self.mismatch is not None:
+            names, values = self.mismatch
+            self.orphan = (line, stripped)
+            self.orphan_detail = (f"it names {names} columns but the row after it (line "
+                                  f"{line + 1}) has {values} values")
+            self.warnings.append(
+                f"{self.path}: the header at line {line} was not used: {self.orphan_detail}")
         if hdr is not None:
             if blk is not None:
                 self._close_block(f"next header at line {line}")
@@ -711,8 +735,10 @@ class _Scanner:
             return
         if self.mode == "log" and stripped:
             toks = stripped.split()
-            if toks[0].lower() == "step" and all(_IDENT.match(t) for t in toks):
+            if toks[0].lower() == "step" and all(_IDENT.match(t) for t in toks) and \
+                    self.mismatch is None:
                 self.orphan = (line, stripped)  # a header with no rows after it
+                self.orphan_detail = ""
             self._command(line, text)
 
 

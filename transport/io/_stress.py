@@ -53,6 +53,41 @@ def _uniform(axis: np.ndarray, *, exact: bool) -> tuple[float, int | None]:
     return stride, None
 
 
+def _check_values(values: np.ndarray, table: Table, names: list[str], spath: str | None,
+                  *, positive: bool = False, scale: float = 1.0) -> None:
+    """InputError at the line of the first non-finite value of the (k, n) array `values`
+    (columns `names`), of one so large that sums of squares (autocorrelations) overflow
+    double precision, or, with `positive`, of one that is not positive."""
+    values = values.reshape(-1, values.shape[-1])
+    n = values.shape[1]
+    limit = float(np.sqrt(np.finfo(np.float64).max / max(n, 1))) / 10
+    for lo in range(0, n, _CHUNK):
+        block = values[:, lo: lo + _CHUNK]
+        ok = np.abs(block) < limit  # False for nan and inf too
+        if positive:
+            ok &= block > 0
+        if ok.all():
+            continue
+        where = np.argwhere(~ok)
+        comp, col = where[np.argmin(where[:, 1])]
+        row = lo + int(col)
+        value = float(block[comp, col])
+        if not np.isfinite(value):
+            what = f"a non-finite value ({value})"
+        elif abs(value) >= limit:
+            what = f"a value too large to analyse ({value / scale:.3g}; its square " \
+                   "overflows double precision)"
+        else:
+            what = f"a value that is not positive ({value / scale:.6g})"
+        raise InputError(
+            f"column '{names[int(comp)]}' has {what} in row {row + 1}", path=spath,
+            line=table.line_of(row),
+            expected="finite values of plausible size in every row (a blown-up or "
+            "corrupted run?)",
+            fix="repair or remove the damaged rows, or choose another run with --run",
+        )
+
+
 def stress_from_table(
     table: Table,
     *,
@@ -136,9 +171,11 @@ def stress_from_table(
         )
     if bad is not None:
         prev, here = axis[bad - 1], axis[bad]
+        what = (f"{axis_name} {here:.10g} is repeated (not a restart: the rows are in one "
+                "block)" if here == prev else f"{axis_name} {here:.10g} follows {prev:.10g}")
         raise InputError(
-            f"samples are not evenly spaced: {axis_name} {here:.10g} follows {prev:.10g} "
-            f"(the interval elsewhere is {spacing:.10g})", path=spath,
+            f"samples are not evenly spaced: {what} (the interval elsewhere is "
+            f"{spacing:.10g})", path=spath,
             line=table.line_of(bad),
             expected="a constant interval between rows",
             fix=("choose one run with --run, or remove the rows out of sequence"
@@ -156,6 +193,8 @@ def stress_from_table(
         vol_file *= units.volume
         vol_how = f"columns '{canon['lx']}' x '{canon['ly']}' x '{canon['lz']}'"
     if vol_file is not None:
+        vol_name = canon.get("volume") or "*".join(canon[c] for c in ("lx", "ly", "lz"))
+        _check_values(vol_file, table, [vol_name], spath, positive=True, scale=units.volume)
         if np.all(vol_file == vol_file[0]):
             vol: float | np.ndarray = float(vol_file[0])
         else:
@@ -174,6 +213,10 @@ def stress_from_table(
         except (TypeError, ValueError):
             raise InputError(f"volume {volume!r} is not a number", path=spath,
                              fix="pass --volume as a number") from None
+        if not (np.isfinite(vol) and vol > 0):
+            raise InputError(f"--volume {volume!r} is not a positive number", path=spath,
+                             expected=f"the box volume in {units.length_label}^3",
+                             fix="pass a positive --volume")
         vol_how = f"given by the user ({float(volume):g} {units.length_label}^3)"
     else:
         raise InputError(
@@ -191,9 +234,14 @@ def stress_from_table(
         except (TypeError, ValueError):
             raise InputError(f"temperature {temperature!r} is not a number", path=spath,
                              fix="pass --temperature as a number") from None
+        if not (np.isfinite(temp) and temp > 0):
+            raise InputError(f"--temperature {temperature!r} is not a positive number",
+                             path=spath, expected="the thermostat set point (K, or reduced)",
+                             fix="pass a positive --temperature")
         temp_how = "set point given by the user"
     elif "temperature" in canon:
         name = canon["temperature"]
+        _check_values(cols[name], table, [name], spath)
         temp = float(np.mean(cols[name]))
         temp_how = f"mean of column '{name}'"
         unit = "" if units.reduced else " K"
@@ -219,6 +267,8 @@ def stress_from_table(
             keep_for = {canon.get("volume"), canon.get("temperature"), axis_name}
             if canon[c] not in keep_for:
                 cols.pop(canon[c], None)
+
+    _check_values(pressure, table, [canon[c] for c in TENSOR_ORDER], spath, scale=f)
 
     used = {c: canon[c] for c in TENSOR_ORDER}
     for c in ("pyx", "pzx", "pzy"):

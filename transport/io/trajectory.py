@@ -50,12 +50,15 @@ References
 
 from __future__ import annotations
 
+import contextlib
 import math
 import os
 import re
+import shutil
 import tempfile
 import warnings as _warnings
 from collections.abc import Sequence
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Literal
@@ -113,6 +116,11 @@ class _Particles:
     @property
     def n(self) -> int:
         return int(self.species.size)
+
+    def is_identity(self, n_atoms: int) -> bool:
+        """True if the particles are all atoms in order (positions need no copy)."""
+        return (self.weights is None and self.atom_index.size == n_atoms
+                and bool(np.all(self.atom_index == np.arange(n_atoms))))
 
     def reduce(self, a: np.ndarray) -> np.ndarray:
         """Particle values (B, P, 3) from atom values (B, n_atoms, 3)."""
@@ -174,15 +182,16 @@ class _FrameProcessor:
     """Unwraps every atom block of frames by block, reduces to particles, tracks drift.
 
     Blocks are arrays of B consecutive frames (B >= 1); the state carried between blocks is
-    the last frame's raw, wrapped and unwrapped coordinates and image flags, so the result
-    does not depend on how the frames are blocked.
+    the last frame's raw and unwrapped coordinates, image flags and box (copies: callers may
+    reuse their block buffers), so the result does not depend on how the frames are blocked.
+    The input blocks are never modified.
     """
 
     def __init__(self, *, mode: str, explicit: bool, atom_masses: np.ndarray,
                  particles: _Particles, velocities: bool, path: str | None) -> None:
         self.mode = mode  # none | unwrapped | images | displacement
         self.explicit = explicit  # the user asked for this scheme
-        self.masses = atom_masses
+        self.masses = np.ascontiguousarray(atom_masses, dtype=np.float64)
         self.mtot = float(atom_masses.sum())
         self.particles = particles
         self.want_v = velocities
@@ -193,6 +202,10 @@ class _FrameProcessor:
         self._n: np.ndarray | None = None  # last image flags
         self._box0: np.ndarray | None = None
         self._last_box: np.ndarray | None = None
+        self._inv_tile: np.ndarray | None = None  # 1/L0 tiled over atoms (n, 3)
+        self._box_tile: np.ndarray | None = None  # L0 tiled over atoms (n, 3)
+        self._identity = particles.is_identity(atom_masses.size)
+        self._work_arrays: tuple[np.ndarray, np.ndarray] | None = None
 
     @property
     def last_raw(self) -> np.ndarray | None:
@@ -202,9 +215,15 @@ class _FrameProcessor:
     def _first(self, x: np.ndarray, box: np.ndarray | None, images: np.ndarray | None
                ) -> np.ndarray:
         u = x + images * box if self.mode == "images" else x.copy()
-        self._u, self._x, self._n = u, x, images
+        self._u, self._x = u.copy(), x.copy()
+        self._n = None if images is None else images.copy()
         self._box0 = None if box is None else box.copy()
         self._last_box = self._box0
+        if box is not None:
+            # tiles over atoms keep the per-element work of a constant box on contiguous
+            # arrays (broadcasting a length-3 axis is several times slower)
+            self._box_tile = np.tile(box, (x.shape[0], 1))
+            self._inv_tile = 1.0 / self._box_tile
         self.stats.frames += 1
         if box is not None:
             self.stats.min_box = min(self.stats.min_box, float(box.min()))
@@ -212,7 +231,10 @@ class _FrameProcessor:
 
     def unwrap(self, x: np.ndarray, box: np.ndarray | None, images: np.ndarray | None
                ) -> np.ndarray:
-        """Continuous coordinates (B, n, 3) of a block of raw frames x (B, n, 3)."""
+        """Continuous coordinates (B, n, 3) of a block of raw frames x (B, n, 3).
+
+        The result may be `x` itself (no unwrapping needed) or a new array.
+        """
         if self._u is None:
             first = self._first(x[0], None if box is None else box[0],
                                 None if images is None else images[0])
@@ -229,7 +251,8 @@ class _FrameProcessor:
                 if moved.any():
                     s = int(np.argmax(moved))
                     if s > 0:  # frames before the first change, then the rest
-                        a = self.unwrap(x[:s], box[:s], None if images is None else images[:s])
+                        a = self.unwrap(x[:s], box[:s], None if images is None else images[:s]
+                                        ).copy()  # the next call reuses the work arrays
                         b = self.unwrap(x[s:], box[s:], None if images is None else images[s:])
                         return np.concatenate([a, b])
                     st.box_changed = True
@@ -238,29 +261,92 @@ class _FrameProcessor:
                         self.mode = "displacement"
                         st.switched_at = st.frames
         st.frames += x.shape[0]
+        if self.mode == "images":
+            u = self._unwrap_images(x, box, images)
+        elif box is not None and st.box_changed:
+            u = self._unwrap_fluctuating(x, box)
+        else:
+            u = self._unwrap_constant(x, box)
+        if box is not None:
+            self._last_box = box[-1].copy()
+        self._u, self._x = u[-1].copy(), x[-1].copy()
+        self.check()
+        return u
+
+    def _work(self, shape: tuple[int, ...]) -> tuple[np.ndarray, np.ndarray]:
+        """Two float64 work arrays of `shape`, reused from block to block.
+
+        Fresh block-sized arrays would be page-faulted in on every block, which costs more
+        than the arithmetic; the result of :meth:`unwrap` may be one of these, so it is
+        valid until the next call.
+        """
+        have = self._work_arrays
+        if have is None or have[0].shape[0] < shape[0] or have[0].shape[1:] != shape[1:]:
+            have = (np.empty(shape), np.empty(shape))
+            self._work_arrays = have
+        return have[0][: shape[0]], have[1][: shape[0]]
+
+    def _steps(self, x: np.ndarray, d: np.ndarray) -> np.ndarray:
+        """Raw frame-to-frame differences into `d`, the previous block's last frame first."""
+        np.subtract(x[1:], x[:-1], out=d[1:])
+        np.subtract(x[0], self._x, out=d[0])
+        return d
+
+    def _unwrap_constant(self, x: np.ndarray, box: np.ndarray | None) -> np.ndarray:
+        """No box, or a box constant so far: minimum-image steps of the raw coordinates.
+
+        For a constant box the minimum image of a raw step equals that of the step between
+        the wrapped coordinates (they differ by whole box lengths), so nothing is wrapped.
+        """
+        st = self.stats
+        if box is None:
+            return x if self.mode != "displacement" else x.copy()
+        d, q = self._work(x.shape)
+        self._steps(x, d)
+        np.multiply(d, self._inv_tile, out=q)
+        np.rint(q, out=q)
+        jumps = int(np.count_nonzero(q))
+        st.raw_jumps += jumps
+        if self.mode != "displacement":
+            return x
+        if jumps:
+            q *= self._box_tile
+            d -= q
+        # einsum, not a BLAS dot: multithreaded BLAS level-1 calls stall on a busy machine
+        st.sum_d2 += float(np.einsum("bij,bij->", d, d))
+        st.n_d += d.size
+        # running sum frame by frame (numpy's cumsum along the first axis of a 3-D array is
+        # several times slower than these whole-frame additions)
+        np.add(d[0], self._u, out=d[0])
+        for k in range(1, d.shape[0]):
+            np.add(d[k], d[k - 1], out=d[k])
+        return d
+
+    def _unwrap_fluctuating(self, x: np.ndarray, box: np.ndarray) -> np.ndarray:
+        """Fluctuating box: wrap each frame into its own box, minimum image in the later."""
+        st = self.stats
         xs = np.concatenate([self._x[None], x])  # previous frame first
-        if box is not None and self.mode != "images":
+        if self.mode != "images":
             st.raw_jumps += int(np.count_nonzero(np.abs(np.diff(xs, axis=0))
                                                  > 0.5 * box[:, None, :]))
         if self.mode == "none":
-            u = x.copy()
-        elif self.mode == "images":
-            ns = np.concatenate([self._n[None], images])
-            steps = np.diff(xs, axis=0) + np.diff(ns, axis=0) * box[:, None, :]
-            u = self._u + np.cumsum(steps, axis=0)
-            self._n = images[-1]
-        else:
-            ws = _wrap(xs, np.concatenate([self._last_box[None], box])[:, None, :])
-            d = np.diff(ws, axis=0)
-            d -= box[:, None, :] * np.rint(d / box[:, None, :])
-            st.sum_d2 += float(np.einsum("bij,bij->", d, d))
-            st.n_d += d.size
-            u = x.copy() if self.mode == "unwrapped" else self._u + np.cumsum(d, axis=0)
-        if box is not None:
-            self._last_box = box[-1].copy()
-        self._u, self._x = u[-1], x[-1]
-        self.check()
-        return u
+            return x
+        ws = _wrap(xs, np.concatenate([self._last_box[None], box])[:, None, :])
+        d = np.diff(ws, axis=0)
+        d -= box[:, None, :] * np.rint(d / box[:, None, :])
+        st.sum_d2 += float(np.einsum("bij,bij->", d, d))
+        st.n_d += d.size
+        return self._u + np.cumsum(d, axis=0)
+
+    def _unwrap_images(self, x: np.ndarray, box: np.ndarray | None,
+                       images: np.ndarray | None) -> np.ndarray:
+        """u(t+1) = u(t) + [x(t+1) - x(t)] + [n(t+1) - n(t)] L(t+1)."""
+        assert box is not None and images is not None and self._n is not None
+        xs = np.concatenate([self._x[None], x])
+        ns = np.concatenate([self._n[None], images])
+        steps = np.diff(xs, axis=0) + np.diff(ns, axis=0) * box[:, None, :]
+        self._n = images[-1].copy()
+        return self._u + np.cumsum(steps, axis=0)
 
     # -- the spacing check ------------------------------------------------------------------
     def check_applies(self) -> bool:
@@ -313,17 +399,17 @@ class _FrameProcessor:
         """Particle positions/velocities, system COM and its velocity, 2 KE, for B frames."""
         u = self.unwrap(x, box, images)
         out: dict[str, np.ndarray | None] = {
-            "pos": self.particles.reduce(u),
-            "com": np.einsum("bnk,n->bk", u, self.masses) / self.mtot,
+            "pos": u if self._identity else self.particles.reduce(u),
+            "com": np.matmul(self.masses, u) / self.mtot,
             "box": box,
             "pv": None, "vcom": None, "twoke": None,
         }
         if v is not None and self.want_v:
-            vcom = np.einsum("bnk,n->bk", v, self.masses) / self.mtot
-            out["pv"] = self.particles.reduce(v)
+            vcom = np.matmul(self.masses, v) / self.mtot
+            out["pv"] = v if self._identity else self.particles.reduce(v)
             out["vcom"] = vcom
-            out["twoke"] = (np.einsum("bnk,bnk,n->b", v, v, self.masses)
-                            - self.mtot * np.einsum("bk,bk->b", vcom, vcom))
+            v2 = np.einsum("bnk,bnk->bn", v, v)
+            out["twoke"] = v2 @ self.masses - self.mtot * np.einsum("bk,bk->b", vcom, vcom)
         return out
 
 
@@ -421,6 +507,61 @@ _ATOM_STYLES = {
     "full": "id resid type charge x y z",
 }
 _DATA_ATOMS = re.compile(rb"^\s*Atoms\s*#\s*(\w+)", re.MULTILINE)
+
+
+#: Formats whose MDAnalysis readers write cache files beside the trajectory (frame offsets of
+#: the XDR formats: ``.<name>_offsets.npz`` and a ``.lock`` file).
+_CACHE_WRITING_SUFFIXES = (".xtc", ".trr")
+
+
+class _PrivateLinks:
+    """Open trajectories through symbolic links in a private temporary folder.
+
+    MDAnalysis's XTC and TRR readers store an index of frame offsets (and a lock file) beside
+    the file they open, and have no switch to keep it in memory only (``refresh_offsets``
+    rebuilds the index but still saves it). Opening a link in a private folder sends those
+    files there; the folder is deleted afterwards, so the user's folder is never written to.
+    An offsets file already beside the input is copied in (read, not changed), which spares
+    the scan of the file; MDAnalysis checks that it still matches the trajectory.
+    """
+
+    def __init__(self, scratch_dir: str | None) -> None:
+        self._scratch = scratch_dir
+        self._dir: str | None = None
+        self._links: dict[Path, Path] = {}
+
+    def __enter__(self) -> _PrivateLinks:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        if self._dir is not None:
+            shutil.rmtree(self._dir, ignore_errors=True)
+            self._dir = None
+
+    def path(self, p: Path) -> Path:
+        """The path to open for `p` (a private link for formats that write caches)."""
+        if not p.name.lower().endswith(_CACHE_WRITING_SUFFIXES):
+            return p
+        if p in self._links:
+            return self._links[p]
+        if self._dir is None:
+            self._dir = tempfile.mkdtemp(prefix="transport-read-", dir=self._scratch)
+        sub = Path(self._dir) / str(len(self._links))
+        sub.mkdir()
+        link = sub / p.name
+        target = p.resolve()
+        try:
+            os.symlink(target, link)
+        except OSError:  # no symbolic links here (some Windows setups): read a copy
+            shutil.copyfile(target, link)
+        cache = target.parent / f".{target.name}_offsets.npz"
+        if cache.is_file():
+            try:
+                shutil.copyfile(cache, sub / f".{p.name}_offsets.npz")
+            except OSError:
+                pass  # only a speed-up
+        self._links[p] = link
+        return link
 
 
 def _check_file(path: str | os.PathLike[str], what: str) -> Path:
@@ -526,7 +667,8 @@ def _open_topology(topology: Path, reduced: bool) -> Any:
         ) from None
 
 
-def _load_trajectory_into(u: Any, traj: Path, reduced: bool) -> _DumpInfo | None:
+def _load_trajectory_into(u: Any, traj: Path, reduced: bool, links: _PrivateLinks
+                          ) -> _DumpInfo | None:
     dump = _dump_info(traj)
     kw: dict[str, Any] = {}
     if reduced:
@@ -535,14 +677,15 @@ def _load_trajectory_into(u: Any, traj: Path, reduced: bool) -> _DumpInfo | None
         kw.update(format="LAMMPSDUMP", lammps_coordinate_convention=dump.convention)
         if dump.images:
             kw["additional_columns"] = ["ix", "iy", "iz"]
+    opened = links.path(traj)
     try:
         with _warnings.catch_warnings():
             _warnings.simplefilter("ignore")
-            u.load_new(str(traj), **kw)
+            u.load_new(str(opened), **kw)
             n_atoms = u.trajectory.n_atoms
             _ = len(u.trajectory)
     except Exception as exc:
-        msg = _mda_error(exc)
+        msg = _mda_error(exc).replace(str(opened), str(traj))
         if "atoms" in msg.lower() and ("match" in msg.lower() or "same number" in msg.lower()):
             raise InputError(
                 f"the trajectory does not match the topology ({msg})",
@@ -564,19 +707,6 @@ def _load_trajectory_into(u: Any, traj: Path, reduced: bool) -> _DumpInfo | None
             fix="give the topology this trajectory was written with",
         )
     return dump
-
-
-def _steps_of(u: Any, ts: Any) -> int | None:
-    step = ts.data.get("step") if hasattr(ts, "data") else None
-    fmt = type(u.trajectory).__name__
-    if fmt.startswith("DCD"):
-        header = getattr(getattr(u.trajectory, "_file", None), "header", None)
-        if isinstance(header, dict) and header.get("nsavc"):
-            return int(header.get("istart", 0)) + ts.frame * int(header["nsavc"])
-        return None
-    if step is None:
-        return None
-    return int(step)
 
 
 # ---------------------------------------------------------------------------------------
@@ -726,17 +856,24 @@ def load_trajectory(
     mass_factor = 1.0 if reduced else _AMU
     groups = [paths] if continuation else [[p] for p in paths]
     out = []
-    for part_paths in groups:
-        out.append(_read_series(
-            u, top, part_paths, particles=particles, group_by=group_by, select=select,
-            unwrap=unwrap, unit_sys=unit_sys, reduced=reduced, timestep=timestep,
-            frame_interval=frame_interval, skip=skip, temperature=temperature,
-            want_velocities=velocities, memory_limit=(
-                _memory_default() if memory_limit is None else float(memory_limit)),
-            scratch_dir=None if scratch_dir is None else str(scratch_dir),
-            progress=progress, masses_all=masses_raw, mass_factor=mass_factor,
-            notes=tuple(notes),
-        ))
+    with _PrivateLinks(None if scratch_dir is None else str(scratch_dir)) as links:
+        try:
+            for part_paths in groups:
+                out.append(_read_series(
+                    u, top, part_paths, links=links, particles=particles,
+                    group_by=group_by, select=select,
+                    unwrap=unwrap, unit_sys=unit_sys, reduced=reduced, timestep=timestep,
+                    frame_interval=frame_interval, skip=skip, temperature=temperature,
+                    want_velocities=velocities, memory_limit=(
+                        _memory_default() if memory_limit is None else float(memory_limit)),
+                    scratch_dir=None if scratch_dir is None else str(scratch_dir),
+                    progress=progress, masses_all=masses_raw, mass_factor=mass_factor,
+                    notes=tuple(notes),
+                ))
+        finally:
+            # close the reader before its private links are deleted
+            with contextlib.suppress(Exception):
+                u.trajectory.close()
     return out
 
 
@@ -756,22 +893,43 @@ def _factors(dump: _DumpInfo | None, unit_sys: UnitSystem | None, reduced: bool,
     return _ANGSTROM, _ANGSTROM / _PS
 
 
-def _frame_time(u: Any, ts: Any, dump: _DumpInfo | None, unit_sys: UnitSystem | None,
-                reduced: bool, timestep: float | None, frame_interval: float | None,
-                index: int, path: Path) -> tuple[float, str]:
-    """Time of a frame in internal units (s or tau) and how it was found."""
+@dataclass(frozen=True)
+class _Clock:
+    """How frame times are found for one file: what is taken from each frame, and the factor.
+
+    ``kind``: ``index`` (frame index x --frame-interval; nothing per frame), ``dcd_step``
+    (DCD header: ``istart + frame nsavc`` step numbers x --timestep), ``step`` (step numbers
+    stored with each frame x --timestep) or ``time`` (times stored in the file, ps).
+    """
+
+    kind: str
+    factor: float  # internal time units per unit of the per-frame number
+    offset: float  # added to the per-frame number before the factor (DCD istart)
+    scale: float  # multiplies the per-frame number (DCD nsavc)
+    how: str
+
+
+def _frame_clock(u: Any, dump: _DumpInfo | None, unit_sys: UnitSystem | None, reduced: bool,
+                 timestep: float | None, frame_interval: float | None, path: Path) -> _Clock:
+    """The :class:`_Clock` of the file loaded in `u`."""
     tunit = unit_sys.time if unit_sys is not None else _PS
     if frame_interval is not None:
-        return index * frame_interval * tunit, "frame index x --frame-interval"
+        return _Clock("index", frame_interval * tunit, 0.0, 1.0,
+                      "frame index x --frame-interval")
     if timestep is not None:
-        step = _steps_of(u, ts)
-        if step is None:
-            raise InputError(
-                "the trajectory stores no step numbers to multiply by the time step",
-                path=str(path), expected="step numbers (dump, XTC, TRR, DCD)",
-                fix="give the time between frames with --frame-interval instead",
-            )
-        return step * timestep * tunit, "step numbers x --timestep"
+        how = "step numbers x --timestep"
+        if type(u.trajectory).__name__.startswith("DCD"):
+            header = getattr(getattr(u.trajectory, "_file", None), "header", None)
+            if isinstance(header, dict) and header.get("nsavc"):
+                return _Clock("dcd_step", timestep * tunit, float(header.get("istart", 0)),
+                              float(header["nsavc"]), how)
+        elif u.trajectory.ts.data.get("step") is not None:
+            return _Clock("step", timestep * tunit, 0.0, 1.0, how)
+        raise InputError(
+            "the trajectory stores no step numbers to multiply by the time step",
+            path=str(path), expected="step numbers (dump, XTC, TRR, DCD)",
+            fix="give the time between frames with --frame-interval instead",
+        )
     if reduced or dump is not None:
         raise InputError(
             "the time between frames is not known" + (
@@ -779,28 +937,35 @@ def _frame_time(u: Any, ts: Any, dump: _DumpInfo | None, unit_sys: UnitSystem | 
             path=str(path), expected="the integration time step or the frame interval",
             fix="pass --timestep (the integration time step) or --frame-interval",
         )
-    return float(ts.time) * _PS, "times stored in the trajectory"
+    return _Clock("time", _PS, 0.0, 1.0, "times stored in the trajectory")
 
 
-def _box_of(ts: Any, need: bool, path: Path, lf: float) -> np.ndarray | None:
-    dims = ts.dimensions
-    if dims is None or not np.all(np.asarray(dims[:3]) > 0):
+def _block_boxes(dims: np.ndarray, need: bool, path: Path, lf: float, first_frame: int
+                 ) -> np.ndarray | None:
+    """Orthorhombic box lengths (B, 3) in internal units from MDAnalysis dimensions (B, 6).
+
+    Frames without a box have NaN rows. None when a frame has no box and none is needed.
+    """
+    ok = np.all(dims[:, :3] > 0, axis=1)  # False for NaN
+    if not ok.all():
         if need:
             raise InputError(
-                "the trajectory has no periodic box",
+                f"the trajectory has no periodic box (frame {first_frame + int(np.argmin(ok))})",
                 path=str(path), expected="box dimensions in every frame",
                 fix="use a format that stores the box, or --unwrap none with unwrapped "
                     "coordinates",
             )
         return None
-    dims = np.asarray(dims, dtype=np.float64)
-    if need and np.any(np.abs(dims[3:] - 90.0) > 1e-3):
-        raise InputError(
-            f"the box is triclinic (angles {dims[3]:.4g}, {dims[4]:.4g}, {dims[5]:.4g})",
-            path=str(path), expected="an orthorhombic box for unwrapping",
-            fix="give unwrapped coordinates and use --unwrap none",
-        )
-    return dims[:3] * lf
+    if need:
+        tilted = np.any(np.abs(dims[:, 3:] - 90.0) > 1e-3, axis=1)
+        if tilted.any():
+            a = dims[int(np.argmax(tilted)), 3:]
+            raise InputError(
+                f"the box is triclinic (angles {a[0]:.4g}, {a[1]:.4g}, {a[2]:.4g})",
+                path=str(path), expected="an orthorhombic box for unwrapping",
+                fix="give unwrapped coordinates and use --unwrap none",
+            )
+    return dims[:, :3] * lf
 
 
 class _Collector:
@@ -872,7 +1037,9 @@ class _Collector:
         """Add a block of B frames at times `t` (B,) with the processor's outputs `rec`."""
         b = t.size
         if self.dt is None:
-            self._pending.append((t, rec))
+            # callers reuse their block buffers: keep copies until dt is known
+            self._pending.append((np.array(t), {k: None if v is None else np.array(v)
+                                                for k, v in rec.items()}))
             times = np.concatenate([p[0] for p in self._pending])
             if times.size < 2:
                 return
@@ -933,7 +1100,20 @@ def _kinetic_temperature(twoke: np.ndarray | None, n_atoms: int, reduced: bool) 
     return float(np.mean(twoke) / (kb * (3 * n_atoms - 3)))
 
 
-def _read_series(u: Any, top: Path, paths: list[Path], *, particles: _Particles,
+class _BlockBuffers:
+    """One block of raw frames as read: coordinates, per-frame clock values, boxes, image
+    flags and velocities (float64, allocated once and reused)."""
+
+    def __init__(self, size: int, n_atoms: int, images: bool) -> None:
+        self.x = np.empty((size, n_atoms, 3))
+        self.t = np.zeros(size)
+        self.box = np.full((size, 6), np.nan)
+        self.img = np.empty((size, n_atoms, 3)) if images else None
+        self.v: np.ndarray | None = None
+
+
+def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
+                 particles: _Particles,
                  group_by: str, select: str, unwrap: str, unit_sys: UnitSystem | None,
                  reduced: bool, timestep: float | None, frame_interval: float | None,
                  skip: float, temperature: float | None, want_velocities: bool,
@@ -947,7 +1127,7 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, particles: _Particles,
     dumps = []
     lengths = []
     for p in paths:
-        dumps.append(_load_trajectory_into(u, p, reduced))
+        dumps.append(_load_trajectory_into(u, p, reduced, links))
         lengths.append(len(u.trajectory))
     if unwrap == "auto":
         d0 = dumps[0]
@@ -971,60 +1151,117 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, particles: _Particles,
     time_how = ""
     has_v: bool | None = None
     duplicates = 0
-    buf: dict[str, list] = {"t": [], "x": [], "box": [], "img": [], "v": []}
+    # Two sets of block buffers: the frames of one block are copied in (one copy per frame)
+    # while a helper thread unwraps and stores the previous block (numpy releases the GIL,
+    # so on two cores this work hides behind the reading).
+    sets = [_BlockBuffers(block_size, n_atoms, mode == "images") for _ in range(2)]
+    fill = 0
+    active = 0
+    pending: Future | None = None
+    cur: dict[str, Any] = {}  # the current file: path, factors, clock, frame index in file
 
-    def flush() -> None:
-        if not buf["t"]:
-            return
-        boxes = None if buf["box"][0] is None else np.array(buf["box"])
-        rec = proc.block(np.array(buf["x"]), boxes,
-                         np.array(buf["img"]) if buf["img"][0] is not None else None,
-                         np.array(buf["v"]) if buf["v"][0] is not None else None)
-        coll.add(np.array(buf["t"]), rec)
-        for v in buf.values():
-            v.clear()
+    def process(bb: _BlockBuffers, b: int, meta: dict[str, Any]) -> None:
+        """Unwrap and keep one block (runs in the helper thread, one block at a time)."""
+        p, clock, lf = meta["path"], meta["clock"], meta["lf"]
+        x = bb.x[:b]
+        if lf != 1.0:
+            x *= lf
+        if not math.isfinite(float(x.sum())):
+            bad = int(np.argmin(np.isfinite(x).reshape(b, -1).all(axis=1)))
+            raise InputError(f"frame {meta['frame0'] + bad} has non-finite coordinates",
+                             path=str(p), expected="finite coordinates",
+                             fix="repair or truncate the trajectory")
+        if clock.kind == "index":
+            t = (coll.frames_given + np.arange(b)) * clock.factor
+        else:
+            t = (clock.offset + bb.t[:b] * clock.scale) * clock.factor
+        boxes = _block_boxes(bb.box[:b], mode != "none", p, lf, meta["frame0"])
+        v = None
+        if bb.v is not None:
+            v = bb.v[:b]
+            if meta["vf"] != 1.0:
+                v *= meta["vf"]
+        rec = proc.block(x, boxes, None if bb.img is None else bb.img[:b], v)
+        coll.add(t, rec)
+
+    def flush(wait: bool = False) -> None:
+        """Hand the filled block to the helper thread; with `wait`, let it finish."""
+        nonlocal fill, active, pending
+        if fill:
+            if pending is not None:
+                pending.result()  # the previous block is done and its buffers are free
+            pending = pool.submit(process, sets[active], fill, dict(cur))
+            cur["frame0"] += fill
+            bar.update(fill)
+            fill, active = 0, 1 - active
+        if wait and pending is not None:
+            pending, done = None, pending
+            done.result()
 
     bar = progress_bar(progress, total=sum(lengths), desc="reading frames", unit="frame")
-    with bar:
+    with bar, ThreadPoolExecutor(max_workers=1, thread_name_prefix="transport-frames") as pool:
         for k, (p, dump) in enumerate(zip(paths, dumps, strict=True)):
             if len(paths) > 1:
-                _load_trajectory_into(u, p, reduced)
+                _load_trajectory_into(u, p, reduced, links)
             lf, vf = _factors(dump, unit_sys, reduced, p)
+            clock = _frame_clock(u, dump, unit_sys, reduced, timestep, frame_interval, p)
+            time_how = clock.how
+            cur.update(path=p, lf=lf, vf=vf, clock=clock, frame0=0)
+            kind = clock.kind
             with _warnings.catch_warnings():
                 _warnings.simplefilter("ignore")
                 for i, ts in enumerate(u.trajectory):
-                    bar.update(1)
-                    n_index = coll.frames_given + len(buf["t"])
-                    t, time_how = _frame_time(u, ts, dump, unit_sys, reduced, timestep,
-                                              frame_interval, n_index, p)
-                    x = ts.positions.astype(np.float64) * lf
                     if k > 0 and i == 0:
-                        flush()
-                        last_x = proc.last_raw
-                        same = (np.array_equal(x, last_x) if frame_interval is not None
-                                else coll.last_time is not None and math.isclose(
-                                    t, coll.last_time, rel_tol=1e-9, abs_tol=1e-300))
+                        # a restarted run repeats the last frame of the previous part
+                        flush(wait=True)
+                        x0 = ts.positions.astype(np.float64) * lf
+                        if frame_interval is not None:
+                            same = np.array_equal(x0, proc.last_raw)
+                        else:
+                            t0 = (clock.offset + (ts.frame if kind == "dcd_step" else
+                                                  ts.data.get("step", 0) if kind == "step"
+                                                  else ts.time) * clock.scale
+                                  ) * clock.factor
+                            same = coll.last_time is not None and math.isclose(
+                                t0, coll.last_time, rel_tol=1e-9, abs_tol=1e-300)
                         if same:
                             duplicates += 1
                             coll.total -= 1
+                            cur["frame0"] = 1
+                            bar.update(1)
                             continue
                         proc.path = coll.path = str(p)
-                    if not np.all(np.isfinite(x)):
-                        raise InputError(f"frame {ts.frame} has non-finite coordinates",
-                                         path=str(p), expected="finite coordinates",
-                                         fix="repair or truncate the trajectory")
                     if has_v is None:
                         has_v = bool(want_velocities and ts.has_velocities)
-                    buf["t"].append(t)
-                    buf["x"].append(x)
-                    buf["box"].append(_box_of(ts, mode != "none", p, lf))
-                    buf["img"].append(
-                        np.column_stack([ts.data["ix"], ts.data["iy"], ts.data["iz"]]
-                                        ).astype(np.float64) if mode == "images" else None)
-                    buf["v"].append(ts.velocities.astype(np.float64) * vf if has_v else None)
-                    if len(buf["t"]) >= block_size:
+                        if has_v:
+                            for s in sets:
+                                s.v = np.empty((block_size, n_atoms, 3))
+                    bb = sets[active]
+                    bb.x[fill] = ts.positions
+                    if kind == "time":
+                        bb.t[fill] = ts.time
+                    elif kind == "dcd_step":
+                        bb.t[fill] = ts.frame
+                    elif kind == "step":
+                        step = ts.data.get("step")
+                        if step is None:
+                            raise InputError(
+                                f"frame {ts.frame} stores no step number",
+                                path=str(p), expected="a step number in every frame",
+                                fix="give the time between frames with --frame-interval")
+                        bb.t[fill] = step
+                    dims = ts.dimensions
+                    bb.box[fill] = np.nan if dims is None else dims
+                    if bb.img is not None:
+                        bb.img[fill, :, 0] = ts.data["ix"]
+                        bb.img[fill, :, 1] = ts.data["iy"]
+                        bb.img[fill, :, 2] = ts.data["iz"]
+                    if bb.v is not None:
+                        bb.v[fill] = ts.velocities
+                    fill += 1
+                    if fill == block_size:
                         flush()
-            flush()
+            flush(wait=True)
     proc.check(final=True)
     res = coll.finish()
     warn = list(notes)
