@@ -166,10 +166,15 @@ print(json.dumps({"seconds": elapsed, "cpu": cpu, "extra_kib": r1.ru_maxrss - ba
 """
 
 
-def _child(which: str, path: Path) -> dict:
-    res = subprocess.run([sys.executable, "-c", _CHILD, which, str(path)], check=True,
+def run_child(code: str, *args: str) -> dict:
+    """Run `code` in a fresh interpreter with `args`; its last stdout line is a JSON dict."""
+    res = subprocess.run([sys.executable, "-c", code, *args], check=True,
                          capture_output=True, text=True)
     return json.loads(res.stdout.strip().splitlines()[-1])
+
+
+def _child(which: str, path: Path) -> dict:
+    return run_child(_CHILD, which, str(path))
 
 
 def main(argv: list[str] | None = None) -> int:

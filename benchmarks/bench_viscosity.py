@@ -20,17 +20,14 @@ Usage::
 from __future__ import annotations
 
 import argparse
-import json
 import os
-import subprocess
 import sys
-import time
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 
-from bench_read_log import generate  # noqa: E402
+from bench_read_log import generate, run_child  # noqa: E402
 
 _CHILD = r"""
 import json, resource, sys, time
@@ -57,9 +54,7 @@ print(json.dumps({"seconds": elapsed, "read": read, "rows": rows, "extra_kib": p
 
 
 def _child(which: str, path: Path) -> dict:
-    res = subprocess.run([sys.executable, "-c", _CHILD, which, str(path)], check=True,
-                         capture_output=True, text=True)
-    return json.loads(res.stdout.strip().splitlines()[-1])
+    return run_child(_CHILD, which, str(path))
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -95,5 +90,4 @@ def main(argv: list[str] | None = None) -> int:
 
 
 if __name__ == "__main__":
-    t0 = time.perf_counter()
     sys.exit(main())
