@@ -18,6 +18,7 @@ Usage::
 
     python benchmarks/bench_msd.py                  # 1,000 atoms x 2,000 frames
     python benchmarks/bench_msd.py --direct-frames 250
+    python benchmarks/bench_msd.py --quick          # smoke test of the script
 """
 
 from __future__ import annotations
@@ -59,7 +60,10 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--direct-frames", type=int, default=500,
                     help="frames for the direct O(T^2) method (scaled to --frames)")
     ap.add_argument("--repeat", type=int, default=3)
+    ap.add_argument("--quick", action="store_true", help="small sizes (smoke test)")
     args = ap.parse_args(argv)
+    if args.quick:
+        args.atoms, args.frames, args.direct_frames, args.repeat = 100, 400, 100, 1
 
     from transport.diffusion import analyse_diffusion, species_msd
     from transport.io.trajectory import positions_from_arrays

@@ -64,6 +64,41 @@ def _write_dcd(folder: Path, x: np.ndarray, box: float, dt_ps: float, *,
     return top, traj
 
 
+def _write_xdr(folder: Path, x: np.ndarray, box: float, dt_ps: float, *,
+               name: str = "traj.xtc", topology: str = "top.pdb") -> tuple[Path, Path]:
+    """Write a PDB topology and an XTC or TRR trajectory (by suffix) with MDAnalysis.
+
+    The frames go through an in-memory reader with the frame interval set, so the XDR file
+    stores increasing times (its writer takes each frame's time from the Universe).
+    """
+    from MDAnalysis.coordinates.memory import MemoryReader
+
+    n_frames, n, _ = x.shape
+    dims = np.array([box, box, box, 90.0, 90.0, 90.0])
+    with _quiet_mda():
+        warnings.simplefilter("ignore")
+        u = mda.Universe.empty(n, n_residues=n, atom_resindex=np.arange(n), trajectory=True)
+        u.add_TopologyAttr("names", ["C"] * n)
+        u.add_TopologyAttr("types", ["C"] * n)
+        u.add_TopologyAttr("resnames", ["LIQ"] * n)
+        u.add_TopologyAttr("resids", np.arange(1, n + 1))
+        u.add_TopologyAttr("masses", np.full(n, 12.0))
+        u.load_new(np.ascontiguousarray(x, dtype=np.float32), format=MemoryReader, dt=dt_ps,
+                   dimensions=np.tile(dims, (n_frames, 1)))
+        top = folder / topology
+        u.atoms.write(str(top))
+        traj = folder / name
+        with mda.Writer(str(traj), n) as w:
+            for _ in u.trajectory:
+                w.write(u.atoms)
+    return top, traj
+
+
+def _snapshot(folder: Path) -> dict[str, tuple[bytes, int]]:
+    """Every file in `folder` (hidden ones included): its bytes and modification time."""
+    return {p.name: (p.read_bytes(), p.stat().st_mtime_ns) for p in folder.iterdir()}
+
+
 def _write_dump(path: Path, x: np.ndarray, box: float, steps: np.ndarray, columns: str,
                 images: np.ndarray | None = None, v: np.ndarray | None = None) -> Path:
     """A LAMMPS ``dump custom`` text file (gzip if the name ends in .gz)."""
@@ -261,9 +296,111 @@ def test_lammps_dump_needs_units_and_time(tmp_path):
         load_trajectory(data, path, units="lj")
 
 
+@pytest.mark.parametrize("fmt", ["xtc", "trr"])
+def test_xdr_input_folder_is_never_written(tmp_path, fmt):
+    # MDAnalysis's XTC/TRR readers keep an index of frame offsets in hidden files beside the
+    # trajectory (.<name>_offsets.npz and a .lock file; MDAnalysis docs, "Notes on
+    # offsets"). Reading through transport must leave the input folder as it was: the same
+    # file names and the same bytes, with and without such a cache already present.
+    rng = np.random.default_rng(41)
+    x = brownian_positions(200, 30, 2.0, D_A2PS, 25.0, rng)
+    inp, scratch, ref = tmp_path / "input", tmp_path / "scratch", tmp_path / "ref"
+    for d in (inp, scratch, ref):
+        d.mkdir()
+    top, traj = _write_xdr(inp, x, 25.0, 2.0, name=f"run.{fmt}")
+    before = _snapshot(inp)
+    assert sorted(before) == ["run." + fmt, "top.pdb"]
+    s = load_trajectory(top, traj, scratch_dir=scratch, unwrap="none")[0]
+    load_trajectory(top, [traj, traj], scratch_dir=scratch)  # replicas: the same file twice
+    assert _snapshot(inp) == before
+    assert list(scratch.iterdir()) == []  # the private links and their caches are gone
+    # the coordinates are MDAnalysis's own reading of the file (a copy in another folder)
+    (ref / traj.name).write_bytes(traj.read_bytes())
+    with _quiet_mda():
+        warnings.simplefilter("ignore")
+        u = mda.Universe(str(top), str(ref / traj.name))
+        pos = np.array([ts.positions.copy() for ts in u.trajectory])
+    assert s.dt == pytest.approx(2e-12, rel=1e-6)
+    np.testing.assert_allclose(s.positions * 1e10, pos, rtol=1e-6)  # float32 metres
+    # a cache the user's own MDAnalysis session left beside the input is read, not changed
+    with _quiet_mda():
+        warnings.simplefilter("ignore")
+        len(mda.Universe(str(top), str(traj)).trajectory)
+    cached = _snapshot(inp)
+    assert any(name.endswith("_offsets.npz") for name in cached)
+    again = load_trajectory(top, traj, scratch_dir=scratch, unwrap="none")[0]
+    assert _snapshot(inp) == cached
+    np.testing.assert_array_equal(again.positions, s.positions)
+
+
+def test_trr_velocities_and_kinetic_temperature(tmp_path):
+    # TRR with positions and velocities (written by MDAnalysis, Angstrom/ps in memory).
+    # References: MDAnalysis's own reading of the file, and equipartition computed here
+    # directly, T = sum m (v - v_com)^2 / (k_B (3N - 3)) averaged over frames (common
+    # practice), with CODATA k_B and atomic mass constant from scipy.constants.
+    from MDAnalysis.coordinates.memory import MemoryReader
+    from scipy import constants
+
+    rng = np.random.default_rng(43)
+    n, n_frames, box = 30, 60, 20.0
+    x = brownian_positions(n_frames, n, 0.05, 0.5, box, rng).astype(np.float32)
+    v = rng.normal(0.0, 3.0, (n_frames, n, 3)).astype(np.float32)  # Angstrom/ps
+    kinds = ["C"] * 10 + ["O"] * 20  # a PDB keeps no masses: they are guessed from these
+    with _quiet_mda():
+        warnings.simplefilter("ignore")
+        u = mda.Universe.empty(n, n_residues=n, atom_resindex=np.arange(n), trajectory=True)
+        for name, val in (("names", kinds), ("types", kinds), ("elements", kinds),
+                          ("resnames", ["LIQ"] * n), ("resids", np.arange(1, n + 1))):
+            u.add_TopologyAttr(name, val)
+        u.load_new(x, format=MemoryReader, dt=0.05, velocities=v,
+                   dimensions=np.tile([box, box, box, 90.0, 90.0, 90.0], (n_frames, 1)))
+        u.atoms.write(str(tmp_path / "top.pdb"))
+        with mda.Writer(str(tmp_path / "run.trr"), n) as w:
+            for _ in u.trajectory:
+                w.write(u.atoms)
+        ref = mda.Universe(str(tmp_path / "top.pdb"), str(tmp_path / "run.trr"))
+        v_ref = np.array([ts.velocities.copy() for ts in ref.trajectory])
+        masses = np.asarray(ref.atoms.masses, dtype=np.float64)  # MDAnalysis's own masses
+    assert sorted(set(np.round(masses))) == [12.0, 16.0]
+    s = load_trajectory(tmp_path / "top.pdb", tmp_path / "run.trr")[0]
+    assert s.velocities is not None
+    np.testing.assert_allclose(s.velocities / 100.0, v_ref, rtol=1e-6)  # 1 A/ps = 100 m/s
+    m = masses * constants.atomic_mass
+    vv = v_ref.astype(np.float64) * 100.0
+    vcom = np.einsum("fnk,n->fk", vv, m) / m.sum()
+    twoke = np.einsum("fnk,n->f", (vv - vcom[:, None, :]) ** 2, m)
+    truth = float(np.mean(twoke) / (constants.k * (3 * n - 3)))
+    assert s.temperature == pytest.approx(truth, rel=1e-5)  # float32 velocities
+    assert 100.0 < s.temperature < 400.0  # sd 3 A/ps at 12-16 amu: ~130-170 K
+
+
 # ---------------------------------------------------------------------------------------
 # the command line
 # ---------------------------------------------------------------------------------------
+
+
+def test_cli_diffusion_on_xtc_leaves_the_input_folder_alone(tmp_path):
+    # XTC stores coordinates to 0.001 nm: rounding of 0.003 A rms per coordinate adds a
+    # constant ~5e-5 A^2 to the MSD, not to its slope, so the truth D (1 - 1/N) still holds.
+    import hashlib
+
+    rng = np.random.default_rng(36)
+    x = brownian_positions(400, 40, 2.0, D_A2PS, 25.0, rng)
+    inp, out = tmp_path / "input", tmp_path / "out"
+    inp.mkdir()
+    out.mkdir()
+    top, traj = _write_xdr(inp, x, 25.0, 2.0)
+    before = _snapshot(inp)
+    r = CliRunner().invoke(main, ["-q", "diffusion", str(top), str(traj), "--json",
+                                  str(out / "d.json")])
+    assert r.exit_code == 0, r.output
+    assert _snapshot(inp) == before
+    doc = json.loads((out / "d.json").read_text())
+    res = doc["results"][0]
+    assert abs(res["value"] - 1.0 * (1 - 1 / 40)) < 4 * res["stderr"]
+    (src,) = doc["inputs"]  # one source per trajectory file (the topology is named in it)
+    assert src["path"] == str(traj) and src["format"] == "trajectory:XTCReader"
+    assert src["sha256"] == hashlib.sha256(traj.read_bytes()).hexdigest()
 
 
 def _files(folder: Path) -> set[str]:
