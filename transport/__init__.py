@@ -14,19 +14,42 @@ Errors
     InputError, RunTooShortError
 
 Statistics without physics live in :mod:`transport.stats`.
+
+Names are imported on first use (PEP 562), so that ``import transport`` and the command
+line start quickly; ``from transport import green_kubo`` works as usual.
 """
 
-from .diffusion import DiffusionAnalysis, analyse_diffusion, msd_diffusion, vacf_diffusion
-from .errors import InputError, RunTooShortError
-from .estimate import Estimate
-from .io import load_stress, load_stress_many, read_table
-from .io.trajectory import load_trajectory
-from .series import PositionSeries, Source, StressSeries
-from .stats import mean_with_error
-from .units import UNIT_SYSTEMS, UnitSystem, get_unit_system
-from .viscosity import ViscosityAnalysis, analyse_viscosity, einstein, green_kubo
+from __future__ import annotations
+
+import importlib
+from typing import TYPE_CHECKING, Any
 
 __version__ = "0.1.0"
+
+_WHERE: dict[str, str] = {
+    "DiffusionAnalysis": "diffusion",
+    "analyse_diffusion": "diffusion",
+    "msd_diffusion": "diffusion",
+    "vacf_diffusion": "diffusion",
+    "InputError": "errors",
+    "RunTooShortError": "errors",
+    "Estimate": "estimate",
+    "load_stress": "io",
+    "load_stress_many": "io",
+    "read_table": "io",
+    "load_trajectory": "io.trajectory",
+    "PositionSeries": "series",
+    "Source": "series",
+    "StressSeries": "series",
+    "mean_with_error": "stats",
+    "UNIT_SYSTEMS": "units",
+    "UnitSystem": "units",
+    "get_unit_system": "units",
+    "ViscosityAnalysis": "viscosity",
+    "analyse_viscosity": "viscosity",
+    "einstein": "viscosity",
+    "green_kubo": "viscosity",
+}
 
 __all__ = [
     "UNIT_SYSTEMS",
@@ -53,3 +76,28 @@ __all__ = [
     "read_table",
     "vacf_diffusion",
 ]
+
+
+def __getattr__(name: str) -> Any:
+    module = _WHERE.get(name)
+    if module is None:
+        raise AttributeError(f"module 'transport' has no attribute {name!r}")
+    value = getattr(importlib.import_module(f".{module}", __name__), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(__all__))
+
+
+if TYPE_CHECKING:  # pragma: no cover - for type checkers and editors
+    from .diffusion import DiffusionAnalysis, analyse_diffusion, msd_diffusion, vacf_diffusion
+    from .errors import InputError, RunTooShortError
+    from .estimate import Estimate
+    from .io import load_stress, load_stress_many, read_table
+    from .io.trajectory import load_trajectory
+    from .series import PositionSeries, Source, StressSeries
+    from .stats import mean_with_error
+    from .units import UNIT_SYSTEMS, UnitSystem, get_unit_system
+    from .viscosity import ViscosityAnalysis, analyse_viscosity, einstein, green_kubo
