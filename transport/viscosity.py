@@ -442,22 +442,33 @@ def _fit_double_exp(
         guesses = [[a * tscale / yscale, alpha, tau1 / tscale, tau2 / tscale]]
     lower = [0.0, 0.0, 1e-6, 1e-6]
     upper = [np.inf, 1.0, 100.0, 100.0]
-    best, best_cost = None, np.inf
-    for g in guesses:
+    def _fit(g: Sequence[float], nfev: int) -> tuple[np.ndarray | None, float]:
         g = [float(np.clip(v, lo * 1.0001 if lo else 0.0, hi)) for v, lo, hi in
              zip(g, lower, upper, strict=True)]
         try:
             with _warnings.catch_warnings():
                 _warnings.simplefilter("ignore")
-                popt, _ = optimize.curve_fit(
-                    _double_exp, tt, yy, p0=g, sigma=sig, bounds=(lower, upper),
-                    jac=_double_exp_jac, max_nfev=300,
+                res = optimize.least_squares(
+                    lambda q: (_double_exp(tt, *q) - yy) / sig, g,
+                    jac=lambda q: _double_exp_jac(tt, *q) / sig[:, None],
+                    bounds=(lower, upper), max_nfev=nfev, method="trf",
                 )
         except (RuntimeError, ValueError):
-            continue
-        cost = float(np.sum(((_double_exp(tt, *popt) - yy) / sig) ** 2))
+            return None, np.inf
+        if not np.all(np.isfinite(res.x)):
+            return None, np.inf
+        return res.x, float(2.0 * res.cost)
+
+    # a short fit from each starting guess, then the best one polished
+    best, best_cost = None, np.inf
+    for g in guesses:
+        popt, cost = _fit(g, 60 if len(guesses) > 1 else 400)
         if cost < best_cost:
             best, best_cost = popt, cost
+    if best is not None and len(guesses) > 1:
+        popt, cost = _fit(best, 400)
+        if cost <= best_cost:
+            best = popt
     if best is None:
         raise RuntimeError("double-exponential fit did not converge")
     a, alpha, tau1, tau2 = best
