@@ -118,6 +118,24 @@ def plot_option(f: Callable) -> Callable:
     )(f)
 
 
+def _units_option(f: Callable) -> Callable:
+    """``--units NAME`` for files that do not say their unit convention."""
+    return click.option(
+        "--units", default=None,
+        help="Unit convention where the file does not say it: real, metal, lj, si, cgs, "
+             "electron, micro, nano, gromacs.",
+    )(f)
+
+
+def _timestep_option(f: Callable) -> Callable:
+    """``--timestep DT`` (engine time unit) for files that do not say it."""
+    return click.option(
+        "--timestep", type=float, default=None,
+        help="Integration time step in the engine's time unit, where the file does not "
+             "say it.",
+    )(f)
+
+
 def _quiet(ctx: click.Context) -> bool:
     return bool((ctx.obj or {}).get("quiet"))
 
@@ -220,6 +238,51 @@ def _write_outputs(fig: Any, plot_path: str | None, doc: Any, json_path: str | N
             "path, the permissions and the free disk space") from None
 
 
+def _check_plot_path(plot_path: str | None) -> None:
+    """Refuse a ``--plot`` path whose suffix names no figure format (before any reading)."""
+    from .report.figures import plot_format
+
+    if plot_path is not None:
+        try:
+            plot_format(plot_path)
+        except ValueError as exc:
+            raise click.BadParameter(str(exc), param_hint="--plot") from None
+
+
+def _parse_run_option(run: str | None) -> Any:
+    """The ``--run`` choice parsed by :func:`transport.io.parse_run`."""
+    from .io import parse_run
+
+    try:
+        return parse_run(run)
+    except ValueError as exc:
+        raise click.BadParameter(str(exc), param_hint="--run") from None
+
+
+def _finish(ctx: click.Context, command: str, *, json_path: str | None, text: str,
+            inputs: Any, settings: dict[str, Any], results: Any, warnings: Any = (),
+            extra: dict[str, Any] | None = None, plot_path: str | None = None,
+            figure: Callable[[], Any] | None = None, notes: Any = ()) -> None:
+    """The common end of a command, once every estimate is computed.
+
+    Makes the figure (``figure()``, only with `plot_path`) and the JSON document (only with
+    `json_path`) before writing anything, writes them all or nothing, then shows `notes` on
+    stderr and `text` on stdout (unless the JSON document goes there).
+    """
+    fig = figure() if plot_path is not None and figure is not None else None
+    doc = None
+    if json_path is not None:
+        from .report.jsonout import build_document
+
+        doc = build_document(command, inputs=inputs, settings=settings, results=results,
+                             warnings=warnings, extra=extra)
+    _write_outputs(fig, plot_path, doc, json_path)
+    for n in notes:
+        _note(ctx, f"transport: note: {n}")
+    if json_path != "-":
+        click.echo(text)
+
+
 # ---- commands are registered below (one block per command) -----------------------------
 
 
@@ -229,12 +292,8 @@ def _write_outputs(fig: Any, plot_path: str | None, doc: Any, json_path: str | N
 def _stress_options(f: Callable) -> Callable:
     """Options shared by commands that read the pressure tensor."""
     opts = [
-        click.option("--units", default=None,
-                     help="Unit convention where the file does not say it: real, metal, lj, "
-                          "si, cgs, electron, micro, nano, gromacs."),
-        click.option("--timestep", type=float, default=None,
-                     help="Integration time step in the engine's time unit, where the file "
-                          "does not say it."),
+        _units_option,
+        _timestep_option,
         click.option("--temperature", type=float, default=None,
                      help="Thermostat set point (K, or reduced); default: the mean of the "
                           "file's temperature column."),
@@ -281,16 +340,10 @@ def viscosity(ctx: click.Context, files: tuple[str, ...], units: str | None,
               max_lag: str | None, skip: str, components: str, json_path: str | None,
               plot_path: str | None) -> None:
     """Shear viscosity from the pressure tensor in FILES (several files = replicas)."""
-    from .report.figures import plot_format
-    from .report.jsonout import build_document
     from .report.text import format_estimates
     from .viscosity import analyse_viscosity
 
-    if plot_path is not None:
-        try:
-            plot_format(plot_path)
-        except ValueError as exc:
-            raise click.BadParameter(str(exc), param_hint="--plot") from None
+    _check_plot_path(plot_path)
     _check_outputs(files, json=json_path, plot=plot_path)
     cut_t = _parse_time(cutoff, "--cutoff", positive=True)
     lag_t = _parse_time(max_lag, "--max-lag", positive=True)
@@ -323,23 +376,19 @@ def viscosity(ctx: click.Context, files: tuple[str, ...], units: str | None,
     n_files = len(files)
     title = (f"shear viscosity from {n_files} file(s)"
              + (" treated as independent replicas" if n_files > 1 else ""))
-    # compute everything before writing anything
-    fig = None
-    if plot_path is not None:
+
+    def figure() -> Any:
         from .report.viscosity_plots import viscosity_figure
 
-        fig = viscosity_figure(result.green_kubo, result.einstein)
-    doc = None
-    if json_path is not None:
-        settings = {"method": method, "cutoff": cutoff, "fit_window": fit_window,
-                    "max_lag": max_lag, "skip": skip, "components": components,
-                    "units": series[0].units.name, "temperature": temperature,
-                    "volume": volume, "timestep": timestep, "run": run}
-        doc = build_document("viscosity", inputs=[s.source for s in series],
-                             settings=settings, results=est)
-    _write_outputs(fig, plot_path, doc, json_path)
-    if json_path != "-":
-        click.echo(format_estimates(est, title=title))
+        return viscosity_figure(result.green_kubo, result.einstein)
+
+    settings = {"method": method, "cutoff": cutoff, "fit_window": fit_window,
+                "max_lag": max_lag, "skip": skip, "components": components,
+                "units": series[0].units.name, "temperature": temperature,
+                "volume": volume, "timestep": timestep, "run": run}
+    _finish(ctx, "viscosity", json_path=json_path, plot_path=plot_path, figure=figure,
+            inputs=[s.source for s in series], settings=settings, results=est,
+            text=format_estimates(est, title=title))
 
 
 # ---- demo --------------------------------------------------------------------------------
@@ -366,12 +415,8 @@ def demo(ctx: click.Context, out: str, seed: int) -> None:
               help="Thermo run (block) to use: N (1-based), A-B (joined), 'last' or 'all'; "
                    "default: the last with the pressure tensor, joined with the runs it "
                    "continues.")
-@click.option("--units", default=None,
-              help="Unit convention where the file does not say it: real, metal, lj, si, "
-                   "cgs, electron, micro, nano, gromacs.")
-@click.option("--timestep", type=float, default=None,
-              help="Integration time step in the engine's time unit, where the file does "
-                   "not say it.")
+@_units_option
+@_timestep_option
 @json_option
 @click.pass_context
 def inspect_file(ctx: click.Context, file: str, run: str | None, units: str | None,
@@ -379,40 +424,28 @@ def inspect_file(ctx: click.Context, file: str, run: str | None, units: str | No
     """Show what the readers find in FILE: format, thermo runs (blocks) with their steps
     and columns, which were used, units, time step, rows kept and dropped, warnings."""
     from ._progress import want_progress
-    from .io import parse_run, read_table
+    from .io import read_table
     from .io._inspect import describe_table, stress_summary
-    from .report.jsonout import build_document
 
-    try:
-        run_spec = parse_run(run)
-    except ValueError as exc:
-        raise click.BadParameter(str(exc), param_hint="--run") from None
+    run_spec = _parse_run_option(run)
     _check_outputs((file,), json=json_path)
     table = read_table(file, run=run_spec, units=units, timestep=timestep,
                        progress=want_progress(_quiet(ctx)))
     summary = stress_summary(table)
-    text = describe_table(table, summary)
-    if json_path is not None:
-        doc = build_document(
-            "inspect", inputs=[table.source],
-            settings={"run": run, "units": units, "timestep": timestep},
-            results=[], warnings=table.warnings,
-            extra={
-                "tables": [b.to_record() for b in table.blocks],
-                "resolved": {
-                    "units": table.units.name if table.units is not None else None,
-                    "units_source": table.units_source,
-                    "timestep": table.timestep,
-                    "timestep_source": table.timestep_source,
-                    "compression": table.compression,
-                    "rows": table.n,
-                    "stress": summary,
-                },
-            },
-        )
-        _write_outputs(None, None, doc, json_path)
-    if json_path != "-":
-        click.echo(text)
+    resolved = {
+        "units": table.units.name if table.units is not None else None,
+        "units_source": table.units_source,
+        "timestep": table.timestep,
+        "timestep_source": table.timestep_source,
+        "compression": table.compression,
+        "rows": table.n,
+        "stress": summary,
+    }
+    _finish(ctx, "inspect", json_path=json_path, inputs=[table.source],
+            settings={"run": run, "units": units, "timestep": timestep}, results=[],
+            warnings=table.warnings,
+            extra={"tables": [b.to_record() for b in table.blocks], "resolved": resolved},
+            text=describe_table(table, summary))
 
 
 # ---- average -----------------------------------------------------------------------------
@@ -535,12 +568,8 @@ def _average_table_text(rows: list[tuple[str, Any]]) -> str:
 @click.option("--skip", default="auto", show_default=True,
               help="Initial transient to drop: 'auto' (detected), a time in ps (tau for "
                    "reduced units; rows if the file has no time axis), or 0 to keep all.")
-@click.option("--units", default=None,
-              help="Unit convention where the file does not say it: real, metal, lj, si, "
-                   "cgs, electron, micro, nano, gromacs.")
-@click.option("--timestep", type=float, default=None,
-              help="Integration time step in the engine's time unit, where the file does "
-                   "not say it.")
+@_units_option
+@_timestep_option
 @click.option("--run", "run", default=None,
               help="Thermo run (block) of a log: N (1-based), A-B (joined), 'last' or 'all'.")
 @click.option("--replicas/--no-replicas", default=True, show_default=True,
@@ -560,20 +589,11 @@ def average(ctx: click.Context, files: tuple[str, ...], columns: tuple[str, ...]
     from pathlib import Path
 
     from ._progress import want_progress
-    from .io import parse_run, read_table
-    from .report.figures import plot_format
-    from .report.jsonout import build_document
+    from .io import read_table
     from .stats import combine_replicas, mean_with_error
 
-    if plot_path is not None:
-        try:
-            plot_format(plot_path)
-        except ValueError as exc:
-            raise click.BadParameter(str(exc), param_hint="--plot") from None
-    try:
-        run_spec = parse_run(run)
-    except ValueError as exc:
-        raise click.BadParameter(str(exc), param_hint="--run") from None
+    _check_plot_path(plot_path)
+    run_spec = _parse_run_option(run)
     skip_t = None if skip == "auto" else _parse_time(skip, "--skip")
     _check_outputs(files, json=json_path, plot=plot_path)
     if replicas:
@@ -629,27 +649,21 @@ def average(ctx: click.Context, files: tuple[str, ...], columns: tuple[str, ...]
             comb = replace(comb, diagnostics={**comb.diagnostics, "sources": list(files)})
             rows.append((f"replicas ({len(files)} files)", comb))
 
-    fig = None
-    if plot_path is not None:
+
+    def figure() -> Any:
         from .report.plots import average_figure
 
         singles = [(p, e) for p, e in rows if e.method != "replicas_student_t"]
-        fig = average_figure([e for _, e in singles],
-                             [f"{Path(p).name} {e.quantity}" for p, e in singles])
-    doc = None
-    if json_path is not None:
-        settings = {"columns": list(per_column), "skip": skip, "units": units,
-                    "timestep": timestep, "run": run, "replicas": replicas}
-        doc = build_document("average", inputs=[t.source for t in tables], settings=settings,
-                             results=[e for _, e in rows],
-                             warnings=[*(w for t in tables for w in t.warnings), *notes])
-    _write_outputs(fig, plot_path, doc, json_path)
-    for w in dict.fromkeys(w for t in tables for w in t.warnings):
-        _note(ctx, f"transport: note: {w}")
-    for n in notes:
-        _note(ctx, f"transport: note: {n}")
-    if json_path != "-":
-        click.echo(_average_table_text(rows))
+        return average_figure([e for _, e in singles],
+                              [f"{Path(p).name} {e.quantity}" for p, e in singles])
+
+    read_notes = [w for t in tables for w in t.warnings]
+    settings = {"columns": list(per_column), "skip": skip, "units": units,
+                "timestep": timestep, "run": run, "replicas": replicas}
+    _finish(ctx, "average", json_path=json_path, plot_path=plot_path, figure=figure,
+            inputs=[t.source for t in tables], settings=settings,
+            results=[e for _, e in rows], warnings=[*read_notes, *notes],
+            notes=[*dict.fromkeys(read_notes), *notes], text=_average_table_text(rows))
 
 
 # ---- diffusion ---------------------------------------------------------------------------
@@ -725,16 +739,10 @@ def diffusion(ctx: click.Context, topology: str, trajectories: tuple[str, ...], 
     from ._progress import want_progress
     from .diffusion import analyse_diffusion
     from .io.trajectory import load_trajectory
-    from .report.figures import plot_format
-    from .report.jsonout import build_document, write_json
     from .report.text import format_estimates
     from .units import get_unit_system
 
-    if plot_path is not None:
-        try:
-            plot_format(plot_path)
-        except ValueError as exc:
-            raise click.BadParameter(str(exc), param_hint="--plot") from None
+    _check_plot_path(plot_path)
     if units is not None:
         try:
             get_unit_system(units)
@@ -758,27 +766,19 @@ def diffusion(ctx: click.Context, topology: str, trajectories: tuple[str, ...], 
     n = len(trajectories)
     kind = ("consecutive parts of one run" if continuation else "independent replicas")
     title = f"self-diffusion from {n} trajectory file(s)" + (f" ({kind})" if n > 1 else "")
-    # compute everything before writing anything
-    fig = None
-    if plot_path is not None:
+
+    def figure() -> Any:
         from .report.diffusion_plots import diffusion_figure
 
-        fig = diffusion_figure(result.msd, result.vacf)
-    doc = None
-    if json_path is not None:
-        settings = {"topology": topology, "select": select, "group_by": group_by,
-                    "unwrap": unwrap, "unwrap_used": [s.unwrap for s in series],
-                    "fit_window": fit_window, "skip": skip, "units": series[0].units.name,
-                    "timestep": timestep, "frame_interval": frame_interval,
-                    "temperature": temperature, "continue": continuation, "vacf": vacf,
-                    "remove_drift": remove_drift}
-        doc = build_document("diffusion", inputs=[src for s in series for src in s.sources],
-                             settings=settings, results=est, warnings=result.notes)
-    if fig is not None:
-        from .report.figures import save_figure
+        return diffusion_figure(result.msd, result.vacf)
 
-        save_figure(fig, plot_path)
-    if doc is not None:
-        write_json(doc, json_path)
-    if json_path != "-":
-        click.echo(format_estimates(est, title=title, notes=result.notes))
+    settings = {"topology": topology, "select": select, "group_by": group_by,
+                "unwrap": unwrap, "unwrap_used": [s.unwrap for s in series],
+                "fit_window": fit_window, "skip": skip, "units": series[0].units.name,
+                "timestep": timestep, "frame_interval": frame_interval,
+                "temperature": temperature, "continue": continuation, "vacf": vacf,
+                "remove_drift": remove_drift}
+    _finish(ctx, "diffusion", json_path=json_path, plot_path=plot_path, figure=figure,
+            inputs=[src for s in series for src in s.sources], settings=settings,
+            results=est, warnings=result.notes,
+            text=format_estimates(est, title=title, notes=result.notes))

@@ -58,6 +58,26 @@ class Source:
         }
 
 
+def _check_temperature(t: float | None, path: str | None) -> None:
+    """InputError unless the temperature is unknown (None) or finite and positive."""
+    from .errors import InputError
+
+    if t is not None and not (np.isfinite(t) and t > 0):
+        raise InputError(f"temperature is {t!r}", path=path,
+                         expected="a positive temperature",
+                         fix="pass --temperature (the thermostat set point)")
+
+
+def _set_common(obj: StressSeries | PositionSeries) -> None:
+    """Normalise the fields both series share: floats for ``dt``, ``t0`` and the
+    temperature, a tuple of warnings."""
+    t = obj.temperature
+    object.__setattr__(obj, "dt", float(obj.dt))
+    object.__setattr__(obj, "t0", float(obj.t0))
+    object.__setattr__(obj, "temperature", None if t is None else float(t))
+    object.__setattr__(obj, "warnings", tuple(obj.warnings))
+
+
 def _check_finite(name: str, a: np.ndarray, source: Source) -> None:
     from .errors import InputError
 
@@ -154,23 +174,13 @@ class StressSeries:
                 expected="a positive volume (constant, or one per sample)",
                 fix="pass --volume, or include a volume or box-length column",
             )
-        t = self.temperature
-        if t is not None and not (np.isfinite(t) and t > 0):
-            raise InputError(
-                f"temperature is {t!r}",
-                path=src.path or None,
-                expected="a positive temperature",
-                fix="pass --temperature (the thermostat set point)",
-            )
+        _check_temperature(self.temperature, src.path or None)
         p.flags.writeable = False
         if isinstance(vol, np.ndarray):
             vol.flags.writeable = False
         object.__setattr__(self, "pressure", p)
         object.__setattr__(self, "volume", vol)
-        object.__setattr__(self, "dt", float(self.dt))
-        object.__setattr__(self, "t0", float(self.t0))
-        object.__setattr__(self, "temperature", None if t is None else float(t))
-        object.__setattr__(self, "warnings", tuple(self.warnings))
+        _set_common(self)
 
     # ---- derived views ---------------------------------------------------------------
     @property
@@ -348,11 +358,7 @@ class PositionSeries:
             if dv.shape != (n_frames, 3):
                 raise ValueError(f"drift_velocity must have shape {(n_frames, 3)}")
             dv.flags.writeable = False
-        t = self.temperature
-        if t is not None and not (np.isfinite(t) and t > 0):
-            raise InputError(f"temperature is {t!r}", path=path,
-                             expected="a positive temperature",
-                             fix="pass --temperature (the thermostat set point)")
+        _check_temperature(self.temperature, path)
         app = self.atoms_per_particle
         app = (np.ones(n_part, dtype=np.intp) if app is None
                else np.ascontiguousarray(np.broadcast_to(np.asarray(app, dtype=np.intp),
@@ -369,11 +375,8 @@ class PositionSeries:
         object.__setattr__(self, "drift", drift)
         object.__setattr__(self, "drift_velocity", dv)
         object.__setattr__(self, "atoms_per_particle", app)
-        object.__setattr__(self, "dt", float(self.dt))
-        object.__setattr__(self, "t0", float(self.t0))
-        object.__setattr__(self, "temperature", None if t is None else float(t))
         object.__setattr__(self, "sources", tuple(self.sources))
-        object.__setattr__(self, "warnings", tuple(self.warnings))
+        _set_common(self)
 
     # ---- derived views ---------------------------------------------------------------
     @property

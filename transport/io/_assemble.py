@@ -83,6 +83,16 @@ def resolve_units(name: str | UnitSystem | None, *, path: str, what: str) -> Uni
         ) from None
 
 
+def user_number(value: float | str, *, what: str, option: str, path: str | None) -> float:
+    """A number the user gave (``--timestep``, ``--volume``, ...) as a float; InputError
+    naming the option if it is not a number."""
+    try:
+        return float(value)
+    except (TypeError, ValueError):
+        raise InputError(f"{what} {value!r} is not a number", path=path,
+                         fix=f"pass {option} as a number") from None
+
+
 @dataclass
 class _Part:
     """The part of a block that goes into the table: rows [lo, hi)."""
@@ -415,11 +425,7 @@ def assemble(
     ts_value: float | None = None
     ts_source = ""
     if timestep is not None:
-        try:
-            timestep = float(timestep)
-        except (TypeError, ValueError):
-            raise InputError(f"time step {timestep!r} is not a number", path=spath,
-                             fix="pass --timestep as a number") from None
+        timestep = user_number(timestep, what="time step", option="--timestep", path=spath)
         if not (np.isfinite(timestep) and timestep > 0):
             raise InputError(f"time step {timestep!r} is not positive", path=spath,
                              fix="pass a positive --timestep (in the engine's time unit)")

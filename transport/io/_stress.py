@@ -9,6 +9,7 @@ import numpy as np
 
 from ..errors import InputError
 from ..series import StressSeries
+from ._assemble import user_number
 from ._columns import TENSOR_ORDER
 
 if TYPE_CHECKING:
@@ -208,11 +209,7 @@ def stress_from_table(
                     f"from the file's {vol_how} (mean {mean / units.volume:g}); used the file"
                 )
     elif volume is not None:
-        try:
-            vol = float(volume) * units.volume
-        except (TypeError, ValueError):
-            raise InputError(f"volume {volume!r} is not a number", path=spath,
-                             fix="pass --volume as a number") from None
+        vol = user_number(volume, what="volume", option="--volume", path=spath) * units.volume
         if not (np.isfinite(vol) and vol > 0):
             raise InputError(f"--volume {volume!r} is not a positive number", path=spath,
                              expected=f"the box volume in {units.length_label}^3",
@@ -229,11 +226,8 @@ def stress_from_table(
     temp_how = ""
     temp: float | None = None
     if temperature is not None:
-        try:
-            temp = float(temperature)
-        except (TypeError, ValueError):
-            raise InputError(f"temperature {temperature!r} is not a number", path=spath,
-                             fix="pass --temperature as a number") from None
+        temp = user_number(temperature, what="temperature", option="--temperature",
+                           path=spath)
         if not (np.isfinite(temp) and temp > 0):
             raise InputError(f"--temperature {temperature!r} is not a positive number",
                              path=spath, expected="the thermostat set point (K, or reduced)",

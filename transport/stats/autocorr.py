@@ -57,7 +57,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike
 
-from .correlation import autocorrelation
+from .correlation import _finite_1d, autocorrelation
 
 __all__ = ["AutocorrelationTime", "integrated_autocorrelation_time"]
 
@@ -179,11 +179,7 @@ def integrated_autocorrelation_time(
     >>> bool(abs(res.tau - 0.5) < 0.03)   # white noise: tau_int = 1/2
     True
     """
-    a = np.asarray(x, dtype=np.float64)
-    if a.ndim != 1 or a.size < 4:
-        raise ValueError(f"`x` must be 1-D with at least 4 samples; got shape {a.shape}")
-    if not np.isfinite(a).all():
-        raise ValueError("`x` contains a non-finite value")
+    a = _finite_1d(x, "x", 4)
     if not (np.isfinite(c) and c > 0):
         raise ValueError(f"`c` must be a positive number; got {c!r}")
     n = a.size

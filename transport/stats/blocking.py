@@ -43,6 +43,8 @@ import numpy as np
 from numpy.typing import ArrayLike
 from scipy import stats as _st
 
+from .correlation import _finite_1d
+
 __all__ = ["BlockingResult", "block_average"]
 
 #: The extra blocking step is taken only if it leaves at least this many blocks.
@@ -138,11 +140,7 @@ def block_average(x: ArrayLike, *, alpha: float = 0.01) -> BlockingResult:
     >>> res.level, round(res.stderr, 4)   # white noise: plateau from the start, one step up
     (1, 0.0158)
     """
-    a = np.asarray(x, dtype=np.float64)
-    if a.ndim != 1 or a.size < 4:
-        raise ValueError(f"`x` must be 1-D with at least 4 samples; got shape {a.shape}")
-    if not np.isfinite(a).all():
-        raise ValueError("`x` contains a non-finite value")
+    a = _finite_1d(x, "x", 4)
     if not 0 < alpha < 1:
         raise ValueError(f"`alpha` must be in (0, 1); got {alpha!r}")
     constant = bool(a.min() == a.max())

@@ -72,6 +72,17 @@ def _as_series(x: ArrayLike, name: str) -> np.ndarray:
     return a
 
 
+def _finite_1d(x: ArrayLike, name: str, minimum: int, noun: str = "samples") -> np.ndarray:
+    """`x` as a 1-D float64 array of at least `minimum` finite values, else ValueError."""
+    a = np.asarray(x, dtype=np.float64)
+    if a.ndim != 1 or a.size < minimum:
+        raise ValueError(f"`{name}` must be 1-D with at least {minimum} {noun}; got shape "
+                         f"{a.shape}")
+    if not np.isfinite(a).all():
+        raise ValueError(f"`{name}` contains a non-finite value")
+    return a
+
+
 def _normalize(raw: np.ndarray, n: int, normalization: str) -> np.ndarray:
     """Divide raw lag sums (last axis = lag) in place as `normalization` says."""
     if normalization == "pairs":

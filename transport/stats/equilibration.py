@@ -45,6 +45,7 @@ import numpy as np
 from numpy.typing import ArrayLike
 
 from .autocorr import integrated_autocorrelation_time
+from .correlation import _finite_1d
 
 __all__ = ["Equilibration", "detect_equilibration"]
 
@@ -133,11 +134,7 @@ def detect_equilibration(
     >>> 100 <= detect_equilibration(x).start <= 400
     True
     """
-    a = np.asarray(x, dtype=np.float64)
-    if a.ndim != 1 or a.size < 16:
-        raise ValueError(f"`x` must be 1-D with at least 16 samples; got shape {a.shape}")
-    if not np.isfinite(a).all():
-        raise ValueError("`x` contains a non-finite value")
+    a = _finite_1d(x, "x", 16)
     if isinstance(n_candidates, bool) or int(n_candidates) != n_candidates or n_candidates < 1:
         raise ValueError(f"`n_candidates` must be a positive integer; got {n_candidates!r}")
     if not (np.isfinite(significance) and significance >= 0):

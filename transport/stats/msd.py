@@ -51,6 +51,19 @@ def _check_positions(positions: ArrayLike) -> np.ndarray:
     return p
 
 
+def _checked_chunks(
+    positions: ArrayLike, max_lag: int | None, chunk_size: int | None, workers: int | None
+) -> tuple[int, int, Iterator[tuple[int, int, np.ndarray]]]:
+    """Validate the arguments shared by :func:`msd` and :func:`msd_per_particle`.
+
+    Returns ``(n_particles, k, chunks)``: the largest lag ``k`` and the (lazy) chunks of
+    :func:`_chunks`.
+    """
+    p = _check_positions(positions)
+    k = _check_max_lag(max_lag, p.shape[0])
+    return p.shape[1], k, _chunks(p, k, chunk_size, workers)
+
+
 def _chunks(
     p: np.ndarray, max_lag: int | None, chunk_size: int | None, workers: int | None
 ) -> Iterator[tuple[int, int, np.ndarray]]:
@@ -122,10 +135,9 @@ def msd_per_particle(
     >>> msd_per_particle(r).round(12)
     array([[0. , 2.5, 9. ]])
     """
-    p = _check_positions(positions)
-    k = _check_max_lag(max_lag, p.shape[0])
-    out = np.empty((p.shape[1], k + 1))
-    for first, stop, block in _chunks(p, k, chunk_size, workers):
+    n_part, k, chunks = _checked_chunks(positions, max_lag, chunk_size, workers)
+    out = np.empty((n_part, k + 1))
+    for first, stop, block in chunks:
         out[first:stop] = block
     return out
 
@@ -153,9 +165,8 @@ def msd(
     ----------
     .. [1] M. P. Allen and D. J. Tildesley, *Computer Simulation of Liquids*, 2nd ed. (2017).
     """
-    p = _check_positions(positions)
-    k = _check_max_lag(max_lag, p.shape[0])
+    n_part, k, chunks = _checked_chunks(positions, max_lag, chunk_size, workers)
     total = np.zeros(k + 1)
-    for _first, _stop, block in _chunks(p, k, chunk_size, workers):
+    for _first, _stop, block in chunks:
         total += block.sum(axis=0)
-    return total / p.shape[1]
+    return total / n_part

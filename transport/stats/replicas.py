@@ -26,6 +26,7 @@ from numpy.typing import ArrayLike
 from scipy import stats as _st
 
 from ..estimate import Estimate
+from .correlation import _finite_1d
 
 __all__ = [
     "BootstrapResult",
@@ -104,16 +105,6 @@ def _check_confidence(confidence: float) -> float:
     return float(confidence)
 
 
-def _values(values: ArrayLike, name: str, minimum: int) -> np.ndarray:
-    v = np.asarray(values, dtype=np.float64)
-    if v.ndim != 1 or v.size < minimum:
-        raise ValueError(f"`{name}` must be 1-D with at least {minimum} values; got shape "
-                         f"{v.shape}")
-    if not np.isfinite(v).all():
-        raise ValueError(f"`{name}` contains a non-finite value")
-    return v
-
-
 def replica_mean(values: ArrayLike, *, confidence: float = 0.95) -> ReplicaResult:
     """Mean, standard error and Student-t interval of independent replica values.
 
@@ -139,7 +130,7 @@ def replica_mean(values: ArrayLike, *, confidence: float = 0.95) -> ReplicaResul
     (2.0, 0.57735, 2)
     """
     conf = _check_confidence(confidence)
-    v = _values(values, "values", 2)
+    v = _finite_1d(values, "values", 2, "values")
     n = v.size
     mean = float(v.mean())
     std = float(v.std(ddof=1))
@@ -189,7 +180,7 @@ def bootstrap(
     (2.5, True)
     """
     conf = _check_confidence(confidence)
-    v = _values(data, "data", 2)
+    v = _finite_1d(data, "data", 2, "values")
     if isinstance(n_resamples, bool) or int(n_resamples) != n_resamples or n_resamples < 2:
         raise ValueError(f"`n_resamples` must be an integer >= 2; got {n_resamples!r}")
     gen = rng if isinstance(rng, np.random.Generator) else np.random.default_rng(rng)
