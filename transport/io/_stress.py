@@ -201,11 +201,12 @@ def stress_from_table(
         else:
             vol = vol_file
         if volume is not None:
-            given = float(volume) * units.volume
+            given = user_number(volume, what="volume", option="--volume", path=spath) \
+                * units.volume
             mean = float(np.mean(vol_file))
             if not np.isclose(given, mean, rtol=1e-3, atol=0):
                 warnings.append(
-                    f"{src.path}: --volume {float(volume):g} {units.length_label}^3 differs "
+                    f"{src.path}: --volume {given / units.volume:g} {units.length_label}^3 differs "
                     f"from the file's {vol_how} (mean {mean / units.volume:g}); used the file"
                 )
     elif volume is not None:
