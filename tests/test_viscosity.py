@@ -160,3 +160,12 @@ def test_auto_skip_drops_transient():
     g = green_kubo(reps, skip="auto")
     assert g.diagnostics["skipped"][0] > 2.0  # at least one decay time dropped
     assert abs(g.value - ETA) < 4 * g.stderr
+
+
+def test_a_handful_of_samples_is_refused_with_a_clear_message():
+    from transport.errors import InputError
+
+    rng = np.random.default_rng(2)
+    s = StressSeries(MODEL.sample(10, DT, rng), DT, V, KT, "lj")
+    with pytest.raises(InputError, match="only 10 samples"):
+        green_kubo(s)

@@ -272,6 +272,13 @@ def _prepare(
             start = _equilibration_start(s.pressure)
         elif skip:
             start = int(round(float(skip) / s.dt))
+        if s.n < 32:
+            raise InputError(
+                f"only {s.n} samples of the pressure tensor",
+                path=s.source.path or None,
+                expected="a time series of at least a few hundred samples",
+                fix="write the pressure tensor more often or run longer",
+            )
         if start >= s.n - 16:
             raise InputError(
                 f"skipping {start} of {s.n} samples leaves nothing to analyse",
