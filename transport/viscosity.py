@@ -272,7 +272,7 @@ def _prepare(
             start = _equilibration_start(s.pressure)
         elif skip:
             start = int(round(float(skip) / s.dt))
-        if s.n < 32:
+        if s.n < 16:
             raise InputError(
                 f"only {s.n} samples of the pressure tensor",
                 path=s.source.path or None,
