@@ -88,6 +88,7 @@ from .errors import InputError, RunTooShortError
 from .estimate import Estimate
 from .series import PositionSeries
 from .stats import autocorrelation
+from .stats import msd as _fft_msd
 from .units import UnitSystem
 
 __all__ = [
@@ -495,15 +496,6 @@ def _chunks(idx: np.ndarray, n_frames: int) -> list[np.ndarray]:
     return [idx[i:i + size] for i in range(0, idx.size, size)]
 
 
-def _particle_blocks(idx: np.ndarray, size: int) -> list[slice | np.ndarray]:
-    """Blocks of at most `size` particle indices: slices where `idx` is a run of
-    consecutive indices (views, no gather), index arrays otherwise."""
-    if idx.size and idx[-1] - idx[0] == idx.size - 1:
-        a = int(idx[0])
-        return [slice(a + i, a + min(i + size, idx.size)) for i in range(0, idx.size, size)]
-    return [idx[i:i + size] for i in range(0, idx.size, size)]
-
-
 def species_msd(
     series: PositionSeries,
     particles: np.ndarray,
@@ -533,15 +525,8 @@ def species_msd(
 
     Notes
     -----
-    The same sum-of-squares minus twice the position autocorrelation as
-    :func:`transport.stats.msd` [1]_, arranged for the particle average only: the inverse
-    transform is linear, so the power spectra of all particles and coordinates are summed
-    first and transformed back once (one inverse FFT instead of one per particle and
-    coordinate), and the squared norms are summed over particles before their cumulative
-    sums. Particles are processed in blocks of about 1 MB, converted from the float32 store
-    into one reused, zero-padded float64 buffer with the drift removed on the way; each
-    particle's mean position is subtracted before the transform (without it the two terms
-    cancel to ~1e-11 relative error at short lags).
+    :func:`transport.stats.msd` [1]_ on the selected particles of the float32 store, with
+    the drift as the common shift, in blocks of about 1 MB of zero-padded float64 buffer.
 
     References
     ----------
@@ -555,35 +540,9 @@ def species_msd(
     if idx.size == 0:
         raise ValueError("no particles given")
     length = sfft.next_fast_len(n + k, real=True)
-    size = max(1, _MSD_BLOCK_BYTES // (_DIM * length * 8))
-    drift = None
-    if remove_drift and series.drift is not None:
-        # the mean of the drift goes with each particle's mean: only its variation matters
-        drift = np.ascontiguousarray((series.drift - series.drift.mean(axis=0)).T)
-    pos = series.positions
-    buf = np.zeros((min(size, idx.size), _DIM, length))  # zero tail = padding
-    sq = np.zeros(n)
-    power = np.zeros(2 * (length // 2 + 1))  # interleaved re^2, im^2 of the spectrum
-    for block in _particle_blocks(idx, size):
-        src = pos[:, block, :]  # (frames, m, 3), float32
-        m = src.shape[1]
-        v = buf[:m, :, :n]
-        if drift is None:
-            v[...] = src.transpose(1, 2, 0)
-        else:
-            np.subtract(src.transpose(1, 2, 0), drift, out=v)
-        v -= v.mean(axis=-1, keepdims=True)
-        sq += np.einsum("mdt,mdt->t", v, v)
-        spec = sfft.rfft(buf[:m], axis=-1, workers=workers)
-        flat = spec.view(np.float64).reshape(m * _DIM, -1)
-        power += np.einsum("ij,ij->j", flat, flat)
-    s2 = sfft.irfft(power[0::2] + power[1::2], n=length, workers=workers)[: k + 1]
-    cum = np.concatenate([[0.0], np.cumsum(sq)])
-    lags = np.arange(k + 1)
-    s1 = cum[n - lags] + (cum[n] - cum[lags])
-    out = (s1 - 2.0 * s2) / ((n - lags) * float(idx.size))
-    out[0] = 0.0  # exact by definition; removes rounding at lag 0
-    return out
+    drift = series.drift if remove_drift else None
+    return _fft_msd(series.positions, max_lag=k, particles=idx, shift=drift, workers=workers,
+                    chunk_size=max(1, _MSD_BLOCK_BYTES // (_DIM * length * 8)))
 
 
 def _species_vacf(series: PositionSeries, particles: np.ndarray, *, seg_len: int,

@@ -142,31 +142,94 @@ def msd_per_particle(
     return out
 
 
+def _particle_blocks(idx: np.ndarray, size: int) -> list[slice | np.ndarray]:
+    """Blocks of at most `size` particle indices: slices where `idx` is a run of
+    consecutive indices (views, no gather), index arrays otherwise."""
+    if idx.size and idx[-1] - idx[0] == idx.size - 1:
+        a = int(idx[0])
+        return [slice(a + i, a + min(i + size, idx.size)) for i in range(0, idx.size, size)]
+    return [idx[i:i + size] for i in range(0, idx.size, size)]
+
+
 def msd(
     positions: ArrayLike,
     *,
     max_lag: int | None = None,
     chunk_size: int | None = None,
     workers: int | None = None,
+    particles: ArrayLike | None = None,
+    shift: ArrayLike | None = None,
 ) -> np.ndarray:
     """Mean-squared displacement averaged over particles and time origins, by FFT.
 
     Parameters
     ----------
     positions, max_lag, chunk_size, workers
-        As in :func:`msd_per_particle`.
+        As in :func:`msd_per_particle` (the array may be float32 or a memmap; it is read
+        one block of particles at a time and never copied whole).
+    particles : array_like of int, optional
+        Indices of the particles to average over (default: all).
+    shift : array_like, shape (n_frames, n_dims), optional
+        A displacement common to all particles, subtracted from every position first (for
+        example the system's centre-of-mass drift).
 
     Returns
     -------
     ndarray, shape (max_lag + 1,)
-        ``MSD(k) = mean_i MSD_i(k)`` in ``l^2`` (float64).
+        ``MSD(k) = mean_i MSD_i(k)`` in ``l^2`` (float64), lag 0 exactly 0.
+
+    Notes
+    -----
+    The inverse transform is linear, so the power spectra of all particles and coordinates
+    are summed first and transformed back once, and the squared norms are summed over
+    particles before their cumulative sums. Each particle's mean position is subtracted
+    before the transform (without it the two terms cancel to ~1e-11 relative error at short
+    lags).
 
     References
     ----------
     .. [1] M. P. Allen and D. J. Tildesley, *Computer Simulation of Liquids*, 2nd ed. (2017).
     """
-    n_part, k, chunks = _checked_chunks(positions, max_lag, chunk_size, workers)
-    total = np.zeros(k + 1)
-    for _first, _stop, block in chunks:
-        total += block.sum(axis=0)
-    return total / n_part
+    p = _check_positions(positions)
+    n, n_part, n_dim = p.shape
+    k = _check_max_lag(max_lag, n)
+    idx = (np.arange(n_part) if particles is None
+           else np.unique(np.asarray(particles, dtype=np.intp)))
+    if idx.size == 0 or idx[0] < 0 or idx[-1] >= n_part:
+        raise ValueError(f"`particles` must be indices in [0, {n_part - 1}], at least one")
+    length = sfft.next_fast_len(n + k, real=True)
+    if chunk_size is None:
+        chunk_size = max(1, _CHUNK_BYTES // (n_dim * length * 8 * 4))
+    elif isinstance(chunk_size, bool) or int(chunk_size) != chunk_size or chunk_size < 1:
+        raise ValueError(f"`chunk_size` must be a positive integer; got {chunk_size!r}")
+    size = int(chunk_size)
+    sh = None
+    if shift is not None:
+        sh = np.asarray(shift, dtype=np.float64)
+        if sh.shape != (n, n_dim):
+            raise ValueError(f"`shift` must have shape ({n}, {n_dim}); got {sh.shape}")
+        # its mean goes with each particle's mean: only its variation matters
+        sh = np.ascontiguousarray((sh - sh.mean(axis=0)).T)
+    buf = np.zeros((min(size, idx.size), n_dim, length))  # zero tail = padding
+    sq = np.zeros(n)
+    power = np.zeros(2 * (length // 2 + 1))  # interleaved re^2, im^2 of the spectrum
+    for block in _particle_blocks(idx, size):
+        src = p[:, block, :]  # (frames, m, dims)
+        m = src.shape[1]
+        v = buf[:m, :, :n]
+        if sh is None:
+            v[...] = src.transpose(1, 2, 0)
+        else:
+            np.subtract(src.transpose(1, 2, 0), sh, out=v)
+        v -= v.mean(axis=-1, keepdims=True)
+        sq += np.einsum("mdt,mdt->t", v, v)
+        spec = sfft.rfft(buf[:m], axis=-1, workers=workers)
+        flat = spec.view(np.float64).reshape(m * n_dim, -1)
+        power += np.einsum("ij,ij->j", flat, flat)
+    s2 = sfft.irfft(power[0::2] + power[1::2], n=length, workers=workers)[: k + 1]
+    cum = np.concatenate([[0.0], np.cumsum(sq)])
+    lags = np.arange(k + 1)
+    s1 = cum[n - lags] + (cum[n] - cum[lags])
+    out = (s1 - 2.0 * s2) / ((n - lags) * float(idx.size))
+    out[0] = 0.0  # exact by definition; removes rounding at lag 0
+    return out
