@@ -2,8 +2,8 @@
 
 Data: tests/data/lj_diffusion/ (see its README: LAMMPS used only as the MD engine; N = 1372,
 T* = 0.722, rho* = 0.8442, NVE production of 100 tau, frames every 0.25 tau, a DCD with
-unwrapped coordinates and a gzipped ``dump custom`` with wrapped coordinates, image flags and
-velocities).
+unwrapped coordinates and a bzip2-compressed ``dump custom`` with wrapped coordinates, image
+flags and velocities).
 
 Reference: K. Meier, A. Laesecke and S. Kabelac, J. Chem. Phys. 121, 9526 (2004), "Transport
 coefficients of the Lennard-Jones model fluid. II. Self-diffusion": D* = 0.0325 for N = 1372
@@ -24,7 +24,7 @@ from transport.io.trajectory import load_trajectory
 DATA = Path(__file__).parent / "data" / "lj_diffusion"
 TOPOLOGY = DATA / "lj.data"
 DCD = DATA / "lj_diff.dcd"
-DUMP = DATA / "lj_diff.lammpstrj.gz"
+DUMP = DATA / "lj_diff.lammpstrj.bz2"
 
 #: Meier, Laesecke & Kabelac (2004), N = 1372 periodic box, T* = 0.722, rho* = 0.8442.
 D_PUBLISHED = 0.0325

@@ -27,7 +27,7 @@ thermo logs; nothing here is analysed by LAMMPS.
 
 Rerun (one core, under a minute)::
 
-    /work/main/.venv/bin/python tests/data/lammps_logs/make_lammps_logs.py
+    .venv/bin/python tests/data/lammps_logs/make_lammps_logs.py
 """
 
 from __future__ import annotations

