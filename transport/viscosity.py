@@ -45,6 +45,7 @@ from .errors import InputError, RunTooShortError
 from .estimate import Estimate
 from .series import StressSeries
 from .stats import detect_equilibration, weighted_autocorrelation, weighted_msd
+from .stats.autocorr import _first_window
 
 __all__ = [
     "ViscosityAnalysis",
@@ -98,12 +99,7 @@ def traceless_stress(pressure: np.ndarray) -> np.ndarray:
     ----------
     .. [1] Daivis & Evans, J. Chem. Phys. 100, 541 (1994).
     """
-    p = np.asarray(pressure, dtype=np.float64)
-    out = np.empty_like(p)
-    trace = (p[0] + p[1] + p[2]) / 3.0
-    np.subtract(p[:3], trace, out=out[:3])
-    out[3:] = p[3:]
-    return out
+    return _TRACELESS @ np.asarray(pressure, dtype=np.float64)
 
 
 def _weights(components: Components) -> np.ndarray:
@@ -167,12 +163,8 @@ def _level_off_time(
                                    mix=_TRACELESS, offset=offset)[0]
     if not acf[0] > 0:
         return dt
-    rho = acf / acf[0]
-    tau = 0.5 + np.cumsum(rho[1:])  # tau_int(M) in samples, M = 1..max_lag
-    lags = np.arange(1, rho.size)
-    ok = np.nonzero(lags >= WINDOW_C * tau)[0]
-    m = int(lags[ok[0]]) if ok.size else int(lags[-1])
-    return m * dt
+    m, _ = _first_window(acf / acf[0], WINDOW_C)
+    return (m or max_lag) * dt
 
 
 def _equilibration_start(pressure: np.ndarray) -> int:
