@@ -122,7 +122,6 @@ class _Piece:
     stress: tuple[np.ndarray, ...]  # six raw pressure rows of L samples (views)
     offset: np.ndarray  # (6,) subtracted from the traceless components (usually zero)
     prefactor: float  # V / (k_B T) in internal units
-    replica: int
 
 
 @dataclass(frozen=True)
@@ -134,8 +133,6 @@ class _Prepared:
     max_lag: int
     skipped: tuple[float, ...]
     notes: tuple[str, ...]
-    units_name: str
-    reduced: bool
 
 
 def _as_list(series: StressSeries | Sequence[StressSeries]) -> list[StressSeries]:
@@ -321,16 +318,16 @@ def _prepare(
     seg_len = max(min_len, total // target)
     seg_len = min(seg_len, max(a[0].shape[0] for a in trimmed))
     pieces: list[_Piece] = []
-    for r, (p, pref, off) in enumerate(zip(trimmed, prefactors, offsets, strict=True)):
+    for p, pref, off in zip(trimmed, prefactors, offsets, strict=True):
         length = p[0].shape[0]
         k = length // seg_len
         if k == 0:
             if length >= min_len:
-                pieces.append(_Piece(tuple(p), off, pref, r))
+                pieces.append(_Piece(tuple(p), off, pref))
             continue
         for j in range(k):
             pieces.append(_Piece(tuple(row[j * seg_len:(j + 1) * seg_len] for row in p),
-                                 off, pref, r))
+                                 off, pref))
     if len(series) == 1 or any(a[0].shape[0] >= 2 * seg_len for a in trimmed):
         notes.append(
             f"{len(pieces)} independent pieces: {len(series)} replica(s) split into "
@@ -355,8 +352,6 @@ def _prepare(
         max_lag=max(lag, 2),
         skipped=tuple(skipped),
         notes=tuple(notes),
-        units_name=series[0].units.name,
-        reduced=series[0].units.reduced,
     )
 
 
