@@ -24,7 +24,8 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import signal
+
+from .stats.synthetic import ornstein_uhlenbeck
 
 __all__ = ["OUStressModel", "brownian_positions", "ou_process"]
 
@@ -61,10 +62,7 @@ def ou_process(
     -------
     ndarray, shape (size, n)
     """
-    phi = float(np.exp(-dt / tau))
-    noise = rng.standard_normal((size, n))
-    noise[:, 0] = noise[:, 0] / np.sqrt(1.0 - phi * phi)  # stationary start
-    return sigma * np.sqrt(1.0 - phi * phi) * signal.lfilter([1.0], [1.0, -phi], noise, axis=1)
+    return ornstein_uhlenbeck((size, n), dt=dt, tau=tau, rng=rng, sigma=sigma)
 
 
 @dataclass(frozen=True)
