@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 from dataclasses import dataclass, field, replace
+from pathlib import PurePath
 from types import MappingProxyType
 from typing import Any
 
@@ -14,6 +15,24 @@ __all__ = ["Estimate"]
 
 def _frozen_mapping(m: Mapping[str, Any] | None) -> Mapping[str, Any]:
     return MappingProxyType(dict(m or {}))
+
+
+def _jsonable(v: Any) -> Any:
+    """`v` with numpy scalars and arrays, tuples and paths made JSON-ready; NaN/inf -> None."""
+    if isinstance(v, Mapping):
+        return {str(k): _jsonable(x) for k, x in v.items()}
+    if isinstance(v, (list, tuple)):
+        return [_jsonable(x) for x in v]
+    if isinstance(v, np.ndarray):
+        return _jsonable(v.tolist())
+    if isinstance(v, np.integer):
+        return int(v)
+    if isinstance(v, (float, np.floating)):
+        f = float(v)
+        return f if np.isfinite(f) else None
+    if isinstance(v, PurePath):
+        return str(v)
+    return v
 
 
 @dataclass(frozen=True)
@@ -101,32 +120,18 @@ class Estimate:
     def to_record(self) -> dict[str, Any]:
         """The JSON record of this estimate (the common ``results`` entry; no curves)."""
 
-        def _clean(v: Any) -> Any:
-            if isinstance(v, (np.floating, float)):
-                f = float(v)
-                return f if np.isfinite(f) else None
-            if isinstance(v, np.integer):
-                return int(v)
-            if isinstance(v, np.ndarray):
-                return [_clean(x) for x in v.tolist()]
-            if isinstance(v, Mapping):
-                return {str(k): _clean(x) for k, x in v.items()}
-            if isinstance(v, (list, tuple)):
-                return [_clean(x) for x in v]
-            return v
-
         return {
             "quantity": self.quantity,
             "method": self.method,
-            "value": _clean(self.value),
-            "stderr": _clean(self.stderr),
-            "interval95": [_clean(self.interval[0]), _clean(self.interval[1])],
+            "value": _jsonable(self.value),
+            "stderr": _jsonable(self.stderr),
+            "interval95": [_jsonable(self.interval[0]), _jsonable(self.interval[1])],
             "unit": self.unit,
             "group": self.group,
             "corrected": self.corrected,
-            "window": None if self.window is None else [_clean(w) for w in self.window],
+            "window": None if self.window is None else [_jsonable(w) for w in self.window],
             "window_unit": self.window_unit,
-            "n_independent": _clean(self.n_independent),
-            "diagnostics": _clean(dict(self.diagnostics)),
+            "n_independent": _jsonable(self.n_independent),
+            "diagnostics": _jsonable(dict(self.diagnostics)),
             "warnings": list(self.warnings),
         }

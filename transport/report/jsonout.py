@@ -17,7 +17,6 @@ Layout (stable keys; later commands add their own top-level keys)::
 from __future__ import annotations
 
 import json
-import math
 import os
 import sys
 import tempfile
@@ -25,29 +24,10 @@ from collections.abc import Iterable, Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
-import numpy as np
-
-from ..estimate import Estimate
+from ..estimate import Estimate, _jsonable
 from ..series import Source
 
 __all__ = ["build_document", "dumps", "write_json"]
-
-
-def _jsonable(v: Any) -> Any:
-    if isinstance(v, Mapping):
-        return {str(k): _jsonable(x) for k, x in v.items()}
-    if isinstance(v, (list, tuple)):
-        return [_jsonable(x) for x in v]
-    if isinstance(v, np.ndarray):
-        return _jsonable(v.tolist())
-    if isinstance(v, (np.integer,)):
-        return int(v)
-    if isinstance(v, (float, np.floating)):
-        f = float(v)
-        return f if math.isfinite(f) else None
-    if isinstance(v, Path):
-        return str(v)
-    return v
 
 
 def build_document(
