@@ -173,18 +173,30 @@ def run_child(code: str, *args: str) -> dict:
     return json.loads(res.stdout.strip().splitlines()[-1])
 
 
+def parse_common_args(doc: str | None, argv: list[str] | None) -> argparse.Namespace:
+    """--rows, --repeat, --scratch and --keep, shared by the benchmarks on generated logs."""
+    ap = argparse.ArgumentParser(description=(doc or "").splitlines()[0])
+    ap.add_argument("--rows", type=float, default=1e7, help="production rows (default 1e7)")
+    ap.add_argument("--repeat", type=int, default=2, help="runs of each case (best kept)")
+    ap.add_argument("--scratch", type=Path, default=HERE / "_scratch",
+                    help="where to write the generated files")
+    ap.add_argument("--keep", action="store_true", help="keep the generated files")
+    return ap.parse_args(argv)
+
+
+def remove_generated(args: argparse.Namespace, log: Path, bare: Path) -> None:
+    """Delete the generated files unless --keep was given."""
+    if not args.keep:
+        for p in (log, bare, args.scratch / f"ok_{int(args.rows)}"):
+            p.unlink(missing_ok=True)
+
+
 def _child(which: str, path: Path) -> dict:
     return run_child(_CHILD, which, str(path))
 
 
 def main(argv: list[str] | None = None) -> int:
-    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--rows", type=float, default=1e7, help="production rows (default 1e7)")
-    ap.add_argument("--repeat", type=int, default=2, help="runs of each reader (best kept)")
-    ap.add_argument("--scratch", type=Path, default=HERE / "_scratch",
-                    help="where to write the generated files")
-    ap.add_argument("--keep", action="store_true", help="keep the generated files")
-    args = ap.parse_args(argv)
+    args = parse_common_args(__doc__, argv)
     rows = int(args.rows)
     t = time.perf_counter()
     log, bare = generate(args.scratch, rows)
@@ -211,9 +223,7 @@ def main(argv: list[str] | None = None) -> int:
           "includes the checksum thread of transport.io)")
     print("\ngoals: read_table within 1.5x of pandas; peak memory at most 2.5x the output "
           f"arrays; load average now {os.getloadavg()[0]:.2f} (2 cores shared)")
-    if not args.keep:
-        for p in (log, bare, args.scratch / f"ok_{rows}"):
-            p.unlink(missing_ok=True)
+    remove_generated(args, log, bare)
     return 0
 
 

@@ -19,7 +19,6 @@ Usage::
 
 from __future__ import annotations
 
-import argparse
 import os
 import sys
 from pathlib import Path
@@ -27,7 +26,12 @@ from pathlib import Path
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 
-from bench_read_log import generate, run_child  # noqa: E402
+from bench_read_log import (  # noqa: E402
+    generate,
+    parse_common_args,
+    remove_generated,
+    run_child,
+)
 
 _CHILD = r"""
 import json, resource, sys, time
@@ -58,13 +62,7 @@ def _child(which: str, path: Path) -> dict:
 
 
 def main(argv: list[str] | None = None) -> int:
-    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--rows", type=float, default=1e7, help="production rows (default 1e7)")
-    ap.add_argument("--repeat", type=int, default=2, help="runs of each (best kept)")
-    ap.add_argument("--scratch", type=Path, default=HERE / "_scratch",
-                    help="where to write the generated files")
-    ap.add_argument("--keep", action="store_true", help="keep the generated files")
-    args = ap.parse_args(argv)
+    args = parse_common_args(__doc__, argv)
     rows = int(args.rows)
     log, bare = generate(args.scratch, rows)
     print(f"data: {log} ({log.stat().st_size / 1e6:.0f} MB); load average "
@@ -83,9 +81,7 @@ def main(argv: list[str] | None = None) -> int:
               f"{r['seconds'] / base:>11.2f}{r['extra_kib'] * 1024 / 1e6:>15.0f}")
     print(f"\ngoal: green-kubo end to end within 1.5x of pandas; load average now "
           f"{os.getloadavg()[0]:.2f} (2 cores shared)")
-    if not args.keep:
-        for p in (log, bare, args.scratch / f"ok_{rows}"):
-            p.unlink(missing_ok=True)
+    remove_generated(args, log, bare)
     return 0
 
 
