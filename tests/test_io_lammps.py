@@ -278,6 +278,7 @@ def test_chunk_boundaries_do_not_change_the_result(tmp_path_factory, chunk, seed
     with pytest.MonkeyPatch.context() as mp:
         mp.setattr(scan_mod, "CHUNK_BYTES", chunk)
         mp.setattr(scan_mod, "SLACK_BYTES", 64)
+        mp.setattr(scan_mod, "_workers", lambda: 2)  # parse jobs in threads, as for big files
         t = read_table(p)
     assert t.n == ref.n == 101
     for name in COLS:
@@ -288,6 +289,48 @@ def test_chunk_boundaries_do_not_change_the_result(tmp_path_factory, chunk, seed
     lines = text.splitlines()
     for r in range(0, t.n, 7):
         assert int(lines[t.line_of(r) - 1].split()[0]) == t.column("step")[r]
+
+
+def test_threaded_parse_reports_the_first_error_in_the_file(tmp_path):
+    """With rows parsed in worker threads, a bad value in the last rows of a block is
+    reported, not the error in the header that follows it (a column named twice), although
+    the scanner reads that header while the rows are still being parsed."""
+    steps = list(range(0, 2001, 10))
+    vals = values_for(steps, 9, 5)
+    text = PREAMBLE + block(steps, vals) + "run 100\n" + header([*COLS[:4], "Pxx"]) + \
+        row(2000, [1.0, 2.0, 3.0, 4.0])
+    lines = text.splitlines(keepends=True)
+    k = next(i for i, x in enumerate(lines) if x.strip().startswith("1990 "))
+    lines[k] = lines[k].replace(lines[k].split()[2], "x7", 1)
+    p = write(tmp_path, "".join(lines))
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setattr(scan_mod, "CHUNK_BYTES", 512)
+        mp.setattr(scan_mod, "SLACK_BYTES", 64)
+        mp.setattr(scan_mod, "_workers", lambda: 2)
+        with pytest.raises(InputError, match=r"'x7' is not a number") as exc:
+            read_table(p)
+    assert exc.value.line == k + 1
+    with pytest.raises(InputError, match="appears 2 times"):  # the later error, alone
+        read_table(write(tmp_path, text, "clean.log"))
+
+
+@pytest.mark.parametrize("cols", [
+    ["Step", "Temp", "Pxx", "Pyy", "Pzz", "Pxy", "Pxz", "Pyz", "Volume"],   # engine order
+    ["Step", "Pxy", "Temp", "Pzz", "Pxx", "Volume", "Pyz", "Pyy", "Pxz"],   # shuffled
+])
+def test_tensor_columns_in_any_order_give_the_same_pressure(tmp_path, cols):
+    """The reader stores the kept columns in tensor order whatever the file's order, and
+    the pressure is converted in that storage (1 atm = 101325 Pa, exact by definition)."""
+    steps = list(range(0, 501, 10))
+    vals = values_for(steps, len(cols) - 1, 9)
+    v = cols.index("Volume") - 1
+    vals[:, v] = [float(f"{x:.8g}") for x in 40000.0 + np.abs(vals[:, v])]  # as printed
+    p = write(tmp_path, PREAMBLE + block(steps, vals, cols=cols))
+    s = load_stress(p, temperature=300.0)
+    for k, c in enumerate(["Pxx", "Pyy", "Pzz", "Pxy", "Pxz", "Pyz"]):
+        np.testing.assert_allclose(s.pressure[k], vals[:, cols.index(c) - 1] * 101325.0,
+                                   rtol=1e-15)
+    np.testing.assert_allclose(s.volume, vals[:, v] * 1e-30, rtol=1e-15)
 
 
 # ---- compression ---------------------------------------------------------------------------

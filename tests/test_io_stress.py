@@ -140,3 +140,19 @@ def test_load_stress_many_reads_each_file(tmp_path):
     with pytest.raises(InputError, match="file not found") as exc:
         load_stress_many([a, tmp_path / "missing.csv"], units="metal", timestep=0.001)
     assert exc.value.path.endswith("missing.csv")
+
+
+def test_stress_series_leaves_the_callers_array_writeable_and_takes_strided_rows():
+    """Rows that are further apart than n values (the reader's own storage) are used as
+    they are, and the caller's array is not made read-only (common practice for numpy
+    containers: a read-only view of the input)."""
+    from transport.series import StressSeries
+
+    store = np.arange(6 * 40, dtype=np.float64).reshape(6, 40) + 1.0
+    s = StressSeries(pressure=store[:, :30], dt=1.0, volume=1.0, temperature=1.0, units="lj")
+    assert store.flags.writeable and not s.pressure.flags.writeable
+    assert np.shares_memory(s.pressure, store)  # no copy
+    np.testing.assert_array_equal(s.pressure, store[:, :30])
+    f = StressSeries(pressure=np.asfortranarray(store), dt=1.0, volume=1.0, temperature=1.0,
+                     units="lj")
+    assert f.pressure.strides[1] == 8  # rows made contiguous

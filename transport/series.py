@@ -100,7 +100,8 @@ class StressSeries:
     ----------
     pressure : ndarray, shape (6, n)
         P_xx, P_yy, P_zz, P_xy, P_xz, P_yz (order of :data:`COMPONENTS`), in Pa (or reduced
-        eps/sigma^3). C-contiguous, float64, read-only.
+        eps/sigma^3). Float64, read-only; each row is contiguous (the rows may be further
+        apart than n values: the reader hands over its own storage without copying).
     dt : float
         Time between samples, in s (or reduced tau).
     volume : float or ndarray of shape (n,)
@@ -135,7 +136,9 @@ class StressSeries:
 
         units = get_unit_system(self.units)
         object.__setattr__(self, "units", units)
-        p = np.ascontiguousarray(self.pressure, dtype=np.float64)
+        p = np.asarray(self.pressure, dtype=np.float64)
+        if p.ndim != 2 or p.strides[1] != p.itemsize:
+            p = np.ascontiguousarray(p)
         src = self.source
         if p.ndim != 2 or p.shape[0] != 6:
             raise InputError(
@@ -175,8 +178,10 @@ class StressSeries:
                 fix="pass --volume, or include a volume or box-length column",
             )
         _check_temperature(self.temperature, src.path or None)
+        p = p.view()  # read-only view: the caller's own array stays writeable
         p.flags.writeable = False
         if isinstance(vol, np.ndarray):
+            vol = vol.view()
             vol.flags.writeable = False
         object.__setattr__(self, "pressure", p)
         object.__setattr__(self, "volume", vol)

@@ -36,7 +36,7 @@ transparently):
 from __future__ import annotations
 
 import os
-from collections.abc import Iterable
+from collections.abc import Collection, Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -258,8 +258,10 @@ def sniff_format(path: str | os.PathLike[str]) -> tuple[str, str | None]:
     return sniff(check_path(path))
 
 
-_STRESS_WANT = {"step", "time", *PRESSURE_COMPONENTS, "volume", "lx", "ly", "lz",
-                "temperature"}
+# The tensor first, in its order: the reader stores kept columns as rows of one array in
+# this order, so that the six components can become the (6, n) pressure array in place.
+_STRESS_WANT = (*TENSOR_ORDER, *(c for c in PRESSURE_COMPONENTS if c not in TENSOR_ORDER),
+                "step", "time", "volume", "lx", "ly", "lz", "temperature")
 
 
 def _read(
@@ -269,7 +271,7 @@ def _read(
     units: str | UnitSystem | None = None,
     timestep: float | None = None,
     progress: bool = False,
-    want: set[str] | None = None,
+    want: Collection[str] | None = None,
 ) -> Table:
     from . import _binary
     from ._assemble import assemble, resolve_units
@@ -485,8 +487,11 @@ def load_stress(
     """
     from ._stress import stress_from_table
 
+    # A given temperature makes the file's temperature column unnecessary: not converted.
+    want = _STRESS_WANT if temperature is None else tuple(
+        c for c in _STRESS_WANT if c != "temperature")
     table = _read(path, run=run, units=units, timestep=timestep, progress=progress,
-                  want=_STRESS_WANT)
+                  want=want)
     return stress_from_table(table, temperature=temperature, volume=volume, _consume=True)
 
 

@@ -17,8 +17,11 @@ commands echoed in the log (``units``, ``timestep``, ``compute ... pressure``, `
 from __future__ import annotations
 
 import csv
+import os
 import re
-from collections.abc import Callable
+from collections import deque
+from collections.abc import Callable, Collection
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -109,7 +112,8 @@ class ScanBlock:
     canonical: dict[str, str]
     kind: str = "table"
     context: LogContext | None = None
-    arrays: list[np.ndarray] = field(default_factory=list)
+    arrays: list[np.ndarray] = field(default_factory=list)  # rows of `store`, then trimmed
+    store: np.ndarray | None = None  # (kept columns, capacity): one row per kept column
     n: int = 0
     map_rows: list[int] = field(default_factory=list)
     map_lines: list[int] = field(default_factory=list)
@@ -196,7 +200,7 @@ class _Scanner:
         opened: Opened,
         *,
         mode: str,
-        want: Callable[[dict[str, str]], set[str] | None] | None,
+        want: Callable[[dict[str, str]], Collection[str] | None] | None,
         progress: bool,
     ) -> None:
         self.op = opened
@@ -209,7 +213,12 @@ class _Scanner:
         self.cur: ScanBlock | None = None
         self.notes: list[str] = []
         self.warnings: list[str] = []
-        self.pending_segments: list[tuple[int, int, int, int | None]] = []
+        self.pending_segments: list[tuple[int, int, int, int]] = []  # start, end, line, rows
+        self.inflight: deque[_Job] = deque()
+        self.users: dict[int, int] = {}  # id of a text buffer -> parse jobs reading it
+        self.spare: list[bytearray] = []  # text buffers no job reads
+        self.pool: ThreadPoolExecutor | _InlinePool = _InlinePool()
+        self.max_inflight = 1
         self.buf = bytearray(b"\n")
         self.remaining_hint = opened.size if opened.compression is None else 0
         self.orphan: tuple[int, str] | None = None
@@ -384,7 +393,10 @@ class _Scanner:
         if wanted is None:
             keep = list(range(len(names)))
         else:
-            keep = sorted({names.index(canonical[c]) for c in wanted if c in canonical})
+            found = [names.index(canonical[c]) for c in wanted if c in canonical]
+            # In the caller's order when it gives one (rows of the store follow it).
+            keep = list(dict.fromkeys(found)) if isinstance(wanted, (list, tuple)) \
+                else sorted(set(found))
         blk = ScanBlock(
             index=len(self.blocks) + 1, header_line=line, names=names, sep=sep,
             trailing=trailing, keep=keep, canonical=canonical, kind=kind, context=ctx,
@@ -398,6 +410,7 @@ class _Scanner:
         if blk is None:
             return
         self._flush()
+        self._drain()
         if blk.short_last is not None:
             line, seen = blk.short_last
             blk.n -= 1
@@ -418,6 +431,7 @@ class _Scanner:
         blk.ended_by = reason
         for j, a in enumerate(blk.arrays):
             blk.arrays[j] = a[: blk.n]
+        blk.store = None  # the rows keep it alive as long as they are used
         blk.closed = True
         self.cur = None
 
@@ -442,56 +456,92 @@ class _Scanner:
             blk.pending = []
         return True
 
-    def _parse(self, source: Any, blk: ScanBlock) -> pd.DataFrame:
-        """Parse rows with one spare column that catches rows with too many values.
+    def _flush(self) -> None:
+        """Hand the pending data segments of the current block to a parse job.
 
-        When the rows end with a separator (the engine pads every value, so each row ends
-        in blanks) the spare column always exists and only the needed columns are
-        converted; otherwise every column is converted, since pandas silently ignores
-        surplus values outside `usecols`.
-        """
-        kw: dict[str, Any] = dict(header=None, names=list(range(blk.ncols + 1)),
-                                  dtype=np.float64, engine="c")
-        if blk.trailing:
-            kw["usecols"] = sorted({*blk.keep, blk.ncols - 1, blk.ncols})
-        if blk.sep == r"\s+":
-            kw["sep"] = r"\s+"
-        else:
-            kw["sep"] = blk.sep
-            kw["skipinitialspace"] = True
-        if blk.sep in (" ", r"\s+"):
-            kw["quoting"] = csv.QUOTE_NONE  # a stray quote is a bad value, not a string
-        try:
-            return pd.read_csv(source, **kw)
-        except pd.errors.ParserError as exc:
-            if blk.trailing and "Too many columns specified" in str(exc):
-                blk.trailing = False  # these rows do not end with a separator
-                source.seek(0)
-                return self._parse(source, blk)
-            raise
-
-    def _flush(self) -> int:
-        """Parse the pending data segments of the current block.
-
-        Returns the number of lines of the last segment if it was given as unknown (None),
-        else 0.
+        The rows of the segments are counted here (every segment line is one row: blank and
+        text lines are never inside a segment), reserved in the block's arrays and recorded
+        in the line map; the job parses them (in a worker thread when the file is big) and
+        writes the kept columns straight into the reserved rows. Its findings are applied in
+        file order by :meth:`_complete`.
         """
         segs = self.pending_segments
         self.pending_segments = []
         blk = self.cur
         if not segs or blk is None:
-            return 0
-        mv = memoryview(self.buf)
-        source = _ViewReader([mv[s:e] for s, e, _, _ in segs])
+            return
+        rows = sum(nl for _, _, _, nl in segs)
+        self._reserve(blk, rows, sum(e - s for s, e, _, _ in segs))
+        buf = self.buf
+        self.users[id(buf)] = self.users.get(id(buf), 0) + 1
+        with memoryview(buf) as mv:
+            source = _ViewReader([mv[s:e] for s, e, _, _ in segs])
+        job = _Job(
+            blk=blk, buffer=buf, source=source, lines=[(ln, nl) for _, _, ln, nl in segs],
+            row0=blk.n,
+            rows=rows, arrays=list(blk.arrays), keep=list(blk.keep), ncols=blk.ncols,
+            sep=blk.sep, trailing=blk.trailing, header_line=blk.header_line,
+        )
+        for ln, nl in job.lines:
+            contiguous = bool(blk.map_rows) and (
+                blk.map_lines[-1] + (blk.n - blk.map_rows[-1]) == ln)
+            if not contiguous:
+                blk.map_rows.append(blk.n)
+                blk.map_lines.append(ln)
+            if blk.first_line is None:
+                blk.first_line = ln
+            blk.last_line = ln + nl - 1
+            blk.n += nl
+        if len(self.inflight) >= self.max_inflight:
+            self._complete(self.inflight.popleft())
+        job.future = self.pool.submit(_parse_job, job)
+        self.inflight.append(job)
 
-        def file_line(k: int) -> int:
-            """File line of data line k (0-based within the parsed text)."""
-            for _, _, ln, nl in segs:
-                if nl is None or k < nl:
-                    return ln + k
-                k -= nl
-            return segs[-1][2] + k  # pragma: no cover
+    def _reserve(self, blk: ScanBlock, rows: int, nbytes: int) -> None:
+        """Make room for `rows` more rows in the block's arrays.
 
+        Capacity is estimated from the bytes left in the file; capacity never written costs
+        no resident memory. Growing waits for the jobs still writing into the old arrays,
+        then copies one column at a time.
+        """
+        need = blk.n + rows
+        if blk.store is not None and blk.store.shape[1] >= need:
+            return
+        self._drain()
+        per_row = max(nbytes / max(rows, 1), 1.0)
+        cap = need + int(self.remaining_hint / per_row * 1.05) + 1024
+        old = blk.store
+        if old is not None:
+            cap = max(cap, 2 * need)
+        store = np.empty((len(blk.keep), cap), dtype=np.float64)
+        if old is not None:
+            store[:, : blk.n] = old[:, : blk.n]
+        blk.store = store
+        blk.arrays = list(store)
+
+    def _complete(self, job: _Job) -> None:
+        """Apply the findings of a finished parse job (jobs complete in file order).
+
+        An error found in the job's rows is raised after the later jobs are abandoned, so
+        that it is the one reported.
+        """
+        try:
+            self._apply(job)
+        except BaseException:
+            jobs, self.inflight = self.inflight, deque()
+            for rest in jobs:
+                if rest.future is not None:
+                    rest.future.cancel()
+            raise
+
+    def _apply(self, job: _Job) -> None:
+        assert job.future is not None
+        found = job.future.result()
+        job.source.release()
+        self._release(job.buffer)
+        blk = job.blk
+        if found.trailing_off:
+            blk.trailing = False  # these rows do not end with a separator
         if blk.short_last is not None:
             line, seen = blk.short_last
             raise self._err(
@@ -499,174 +549,133 @@ class _Scanner:
                 f"{blk.ncols}", line,
                 expected=f"{blk.ncols} values per row", fix="repair or remove the damaged line",
             )
-        try:
-            df = self._parse(source, blk)
-        except pd.errors.ParserError as exc:
-            source.release()
-            m = _FIELDS_RE.search(str(exc))
-            if m:
-                k = int(m.group(2)) - 1
-                raise self._err(
-                    f"row has {m.group(3)} values but the header at line {blk.header_line} "
-                    f"names {blk.ncols}", file_line(k),
-                    expected=f"{blk.ncols} values per row",
-                    fix="repair or remove the damaged line",
-                ) from None
-            raise self._err(f"cannot parse the rows of block {blk.index} ({exc})",
-                            segs[0][2]) from None
-        except ValueError:
-            k, tok = _find_bad_token(source.text(), blk.sep)
-            source.release()
-            raise self._err(
-                f"{tok!r} is not a number", file_line(k),
-                expected=f"{blk.ncols} numbers per row (header at line {blk.header_line})",
-                fix="repair or remove the damaged line",
-            ) from None
-        rows = len(df)
-        known = sum(nl for _, _, _, nl in segs if nl is not None)
-        last_n = 0
-        if segs[-1][3] is None:
-            last_n = rows - known
-            segs[-1] = (segs[-1][0], segs[-1][1], segs[-1][2], last_n)
-        elif rows != known:  # pragma: no cover - guards the bookkeeping itself
-            raise RuntimeError("row count does not match the scanned lines")
-        if blk.ncols in df.columns:
-            extra = df[blk.ncols].to_numpy()
-            bad = np.flatnonzero(~np.isnan(extra))
-            if bad.size:
-                raise self._err(
-                    f"row has more values than the {blk.ncols} names of the header at line "
-                    f"{blk.header_line}", file_line(int(bad[0])),
-                    expected=f"{blk.ncols} values per row", fix="repair or remove the line",
-                )
-        nan_rows = np.flatnonzero(np.isnan(df[blk.ncols - 1].to_numpy()))
-        if nan_rows.size:
-            lines = source.text().split(b"\n")
-            for r in nan_rows.tolist():
-                ntok = len(_split_fields(lines[r].decode("utf-8", "replace"), blk.sep))
-                if ntok >= blk.ncols:
-                    continue  # a genuine 'nan' written by the engine
-                if r != rows - 1:
-                    raise self._err(
-                        f"row has {ntok} values but the header at line {blk.header_line} "
-                        f"names {blk.ncols}", file_line(r),
-                        expected=f"{blk.ncols} values per row",
-                        fix="repair or remove the damaged line",
-                    )
-                blk.short_last = (file_line(r), ntok)
-        self._store(blk, df, rows, source.nbytes)
-        source.release()
-        mv.release()
-        for _, _, ln, nl in segs:
-            if nl:
-                contiguous = bool(blk.map_rows) and (
-                    blk.map_lines[-1] + (blk.n - blk.map_rows[-1]) == ln)
-                if not contiguous:
-                    blk.map_rows.append(blk.n)
-                    blk.map_lines.append(ln)
-                if blk.first_line is None:
-                    blk.first_line = ln
-                blk.last_line = ln + nl - 1
-                blk.n += nl
-        return last_n
+        if found.error is not None:
+            message, k, kw = found.error
+            raise self._err(message, job.file_line(k), **kw)
+        if found.short_last is not None:
+            r, seen = found.short_last
+            blk.short_last = (job.file_line(r), seen)
 
-    def _store(self, blk: ScanBlock, df: pd.DataFrame, rows: int, nbytes: int) -> None:
-        """Copy the parsed columns into the block's arrays, growing them when needed.
+    def _release(self, buf: bytearray) -> None:
+        """A job is done with `buf`: keep it for reuse once nothing else uses it."""
+        left = self.users.pop(id(buf)) - 1
+        if left:
+            self.users[id(buf)] = left
+        elif buf is not self.buf:
+            self.spare.append(buf)
 
-        Capacity is estimated from the bytes left in the file; capacity never written costs
-        no resident memory, and growing copies one column at a time.
-        """
-        need = blk.n + rows
-        if not blk.arrays or blk.arrays[0].shape[0] < need:
-            per_row = max(nbytes / max(rows, 1), 1.0)
-            cap = need + int(self.remaining_hint / per_row * 1.05) + 1024
-            if blk.arrays:
-                cap = max(cap, 2 * need)
-            for j in range(len(blk.keep)):
-                a = np.empty(cap, dtype=np.float64)
-                if j < len(blk.arrays):
-                    a[: blk.n] = blk.arrays[j][: blk.n]
-                    blk.arrays[j] = a  # the old array is freed before the next is made
-                else:
-                    blk.arrays.append(a)
-        for j, col in enumerate(blk.keep):
-            blk.arrays[j][blk.n: need] = df[col].to_numpy()
+    def _next_buffer(self, carry: int, k: int, fill: int) -> None:
+        """Continue in a buffer no job is reading, starting with the carried-over bytes."""
+        old = self.buf
+        new = self.spare.pop() if self.spare else bytearray(CHUNK_BYTES + SLACK_BYTES)
+        new[0:carry] = old[k:fill]
+        self.buf = new
+        if id(old) not in self.users:
+            self.spare.append(old)
+
+    def _drain(self) -> None:
+        """Wait for every parse job in flight and apply its findings, in file order."""
+        while self.inflight:
+            self._complete(self.inflight.popleft())
 
     # ---- the chunk loop ----------------------------------------------------------------------
     def run(self) -> ScanResult:
-        stream = self.op.stream
-        line_base = 1  # file line number of the line that starts at buf[1]
-        incomplete = False
         total = self.op.size
         bar = progress_bar(self.progress and total > (16 << 20), total=total, unit="B",
                            unit_scale=True, desc=self.op.path.name)
-        seen_raw = 0
         self.buf = bytearray(CHUNK_BYTES + SLACK_BYTES)
         self.buf[0:1] = b"\n"
-        fill = 1
-        eof = False
+        workers = _workers() if total > CHUNK_BYTES else 1
+        if workers > 1:
+            self.pool = ThreadPoolExecutor(max_workers=workers, thread_name_prefix="parse")
+            self.max_inflight = workers + 1  # bounded memory: a few chunks of text at most
         try:
-            while not eof:
-                if len(self.buf) - fill < SLACK_BYTES:
-                    if len(self.buf) > MAX_LINE_BYTES + CHUNK_BYTES:
-                        raise self._err(
-                            "has a line longer than 16 MB", line_base,
-                            expected="a text table or thermo log",
-                            fix="check that this is the right file",
-                        )
-                    self.buf.extend(bytes(len(self.buf)))
-                try:
-                    got = _fill(stream, self.buf, fill)
-                except DECOMPRESSION_ERRORS as exc:
-                    raise self._err(
-                        f"cannot be decompressed ({exc})", None,
-                        fix="check that the file was copied completely",
-                    ) from None
-                bar.update(self.op.raw.bytes_read - seen_raw)
-                seen_raw = self.op.raw.bytes_read
-                if got:
-                    fill += got
-                    if self.op.compression is None:
-                        self.remaining_hint = max(self.op.size - seen_raw, 0)
-                    last_nl = self.buf.rfind(b"\n", 0, fill)
-                    k = self.buf.rfind(b"\n", 0, last_nl) if last_nl > 0 else -1
-                    if k <= 0:
-                        continue
-                else:
-                    eof = True
-                    if self.buf[fill - 1: fill] != b"\n":
-                        tail_start = self.buf.rfind(b"\n", 0, fill) + 1
-                        tail = bytes(self.buf[tail_start:fill])
-                        if (self.mode == "log" and tail.strip()
-                                and _NUMERIC_START.match(tail)):
-                            incomplete = True  # an engine always ends its lines
-                            fill = tail_start
-                        else:
-                            if fill >= len(self.buf):
-                                self.buf.extend(b"\n")
-                            else:
-                                self.buf[fill: fill + 1] = b"\n"
-                            fill += 1
-                    k = fill - 1
-                line_base = self._process(k, line_base)
-                if not eof:
-                    carry = fill - k
-                    self.buf[0:carry] = self.buf[k:fill]
-                    fill = carry
-            if incomplete and self.cur is not None:
-                self.cur.warnings.append(
-                    f"line {line_base} is incomplete (the file ends inside it; the run "
-                    "probably stopped while writing it); dropped"
-                )
-            elif incomplete:
-                self.notes.append(f"line {line_base} is incomplete; ignored")
-            self._close_block("end of file")
+            try:
+                lines, incomplete = self._loop(self.op.stream, bar)
+            except InputError:
+                self._raise_earlier()
+                raise
         finally:
+            self.pool.shutdown(wait=True, cancel_futures=True)
             bar.close()
-        lines = line_base - 1 + (1 if incomplete else 0)
         self.buf = bytearray()
         return ScanResult(self.blocks, lines, self.ctx, self.notes, self.warnings, incomplete,
                           self.orphan, self.orphan_detail)
+
+    def _raise_earlier(self) -> None:
+        """Raise the error of a parse job still in flight: its rows come before."""
+        try:
+            self._drain()
+        except InputError as exc:
+            raise exc from None
+
+    def _loop(self, stream: Any, bar: Any) -> tuple[int, bool]:
+        """Read the file chunk by chunk; the number of lines and whether the last is cut."""
+        line_base = 1  # file line number of the line that starts at buf[1]
+        incomplete = False
+        seen_raw = 0
+        fill = 1
+        eof = False
+        while not eof:
+            if len(self.buf) - fill < SLACK_BYTES:
+                if len(self.buf) > MAX_LINE_BYTES + CHUNK_BYTES:
+                    raise self._err(
+                        "has a line longer than 16 MB", line_base,
+                        expected="a text table or thermo log",
+                        fix="check that this is the right file",
+                    )
+                self.buf.extend(bytes(len(self.buf)))
+            try:
+                got = _fill(stream, self.buf, fill)
+            except DECOMPRESSION_ERRORS as exc:
+                raise self._err(
+                    f"cannot be decompressed ({exc})", None,
+                    fix="check that the file was copied completely",
+                ) from None
+            bar.update(self.op.raw.bytes_read - seen_raw)
+            seen_raw = self.op.raw.bytes_read
+            if got:
+                fill += got
+                if self.op.compression is None:
+                    self.remaining_hint = max(self.op.size - seen_raw, 0)
+                last_nl = self.buf.rfind(b"\n", 0, fill)
+                k = self.buf.rfind(b"\n", 0, last_nl) if last_nl > 0 else -1
+                if k <= 0:
+                    continue
+            else:
+                eof = True
+                if self.buf[fill - 1: fill] != b"\n":
+                    tail_start = self.buf.rfind(b"\n", 0, fill) + 1
+                    tail = bytes(self.buf[tail_start:fill])
+                    if (self.mode == "log" and tail.strip()
+                            and _NUMERIC_START.match(tail)):
+                        incomplete = True  # an engine always ends its lines
+                        fill = tail_start
+                    else:
+                        if fill >= len(self.buf):
+                            self.buf.extend(b"\n")
+                        else:
+                            self.buf[fill: fill + 1] = b"\n"
+                        fill += 1
+                k = fill - 1
+            line_base = self._process(k, line_base)
+            if not eof:
+                carry = fill - k
+                if id(self.buf) in self.users:
+                    self._next_buffer(carry, k, fill)
+                else:
+                    self.buf[0:carry] = self.buf[k:fill]
+                fill = carry
+        if incomplete and self.cur is not None:
+            self.cur.warnings.append(
+                f"line {line_base} is incomplete (the file ends inside it; the run "
+                "probably stopped while writing it); dropped"
+            )
+        elif incomplete:
+            self.notes.append(f"line {line_base} is incomplete; ignored")
+        self._close_block("end of file")
+        lines = line_base - 1 + (1 if incomplete else 0)
+        return lines, incomplete
 
     def _process(self, k: int, line_base: int) -> int:
         """Handle the lines in buf[1:k] (buf[0] and buf[k] are newlines).
@@ -691,13 +700,12 @@ class _Scanner:
             self._special(cur_line, bytes(buf[s:e]), nxt)
             cur_line += 1
             pos = e + 1
-        if k > pos and self._accept(pos, k):
-            self.pending_segments.append((pos, k, cur_line, None))
-            cur_line += self._flush()
-        else:
-            if k > pos:
-                cur_line += buf.count(b"\n", pos, k) + 1
-            self._flush()
+        if k > pos:
+            nl = buf.count(b"\n", pos, k) + 1
+            if self._accept(pos, k):
+                self.pending_segments.append((pos, k, cur_line, nl))
+            cur_line += nl
+        self._flush()
         return cur_line
 
     def _special(self, line: int, raw: bytes, nxt: bytes) -> None:
@@ -754,50 +762,155 @@ def _fill(stream: Any, buf: bytearray, start: int) -> int:
     return total
 
 
+@dataclass
+class _Job:
+    """Rows of one block to parse: their text and where the values go."""
+
+    blk: ScanBlock
+    buffer: bytearray
+    source: _ViewReader
+    lines: list[tuple[int, int]]  # (file line of the first row, rows) of each segment
+    row0: int
+    rows: int
+    arrays: list[np.ndarray]
+    keep: list[int]
+    ncols: int
+    sep: str
+    trailing: bool
+    header_line: int
+    future: Future[_Found] | None = None
+
+    def file_line(self, k: int) -> int:
+        """1-based file line of row k (0-based) of this job."""
+        for ln, nl in self.lines:
+            if k < nl:
+                return ln + k
+            k -= nl
+        return self.lines[-1][0] + self.lines[-1][1] - 1  # pragma: no cover
+
+
+@dataclass
+class _Found:
+    """What a parse job found: an error (message, row, InputError keywords) or a short row."""
+
+    error: tuple[str, int, dict[str, str]] | None = None
+    short_last: tuple[int, int] | None = None  # (row, values seen) of a short final row
+    trailing_off: bool = False
+
+
+def _read_rows(job: _Job, trailing: bool) -> pd.DataFrame:
+    """Parse rows with one spare column that catches rows with too many values.
+
+    When the rows end with a separator (the engine pads every value, so each row ends in
+    blanks) the spare column always exists and only the needed columns are converted;
+    otherwise every column is converted, since pandas silently ignores surplus values
+    outside `usecols`.
+    """
+    kw: dict[str, Any] = dict(header=None, names=list(range(job.ncols + 1)),
+                              dtype=np.float64, engine="c", low_memory=False)
+    if trailing:
+        kw["usecols"] = sorted({*job.keep, job.ncols - 1, job.ncols})
+    if job.sep == r"\s+":
+        kw["sep"] = r"\s+"
+    else:
+        kw["sep"] = job.sep
+        kw["skipinitialspace"] = True
+    if job.sep in (" ", r"\s+"):
+        kw["quoting"] = csv.QUOTE_NONE  # a stray quote is a bad value, not a string
+    job.source.seek(0)
+    return pd.read_csv(job.source, **kw)
+
+
+def _parse_job(job: _Job) -> _Found:
+    """Parse a job's rows and write its kept columns into the block's arrays.
+
+    Runs in a worker thread: pandas' C parser and numpy's copies release the GIL. Touches
+    only the job's own rows of the arrays; everything else is reported back.
+    """
+    found = _Found()
+    ncols = job.ncols
+    per_row = dict(expected=f"{ncols} values per row", fix="repair or remove the damaged line")
+    trailing = job.trailing
+    try:
+        try:
+            df = _read_rows(job, trailing)
+        except pd.errors.ParserError as exc:
+            if not (trailing and "Too many columns specified" in str(exc)):
+                raise
+            trailing, found.trailing_off = False, True
+            df = _read_rows(job, trailing)
+    except pd.errors.ParserError as exc:
+        m = _FIELDS_RE.search(str(exc))
+        if m:
+            found.error = (f"row has {m.group(3)} values but the header at line "
+                           f"{job.header_line} names {ncols}", int(m.group(2)) - 1, per_row)
+        else:
+            found.error = (f"cannot parse the rows of block {job.blk.index} ({exc})", 0, {})
+        return found
+    except ValueError:
+        k, tok = _find_bad_token(job.source.text(), job.sep)
+        found.error = (f"{tok!r} is not a number", k, dict(
+            expected=f"{ncols} numbers per row (header at line {job.header_line})",
+            fix="repair or remove the damaged line"))
+        return found
+    if len(df) != job.rows:
+        # Only a quoted field spanning lines can do this (rows are counted by newlines).
+        found.error = (f"cannot parse the rows of block {job.blk.index} (pandas read "
+                       f"{len(df)} rows from {job.rows} lines; a quoted value spans lines?)",
+                       0, {})
+        return found
+    if ncols in df.columns:
+        bad = np.flatnonzero(~np.isnan(df[ncols].to_numpy()))
+        if bad.size:
+            found.error = (f"row has more values than the {ncols} names of the header at "
+                           f"line {job.header_line}", int(bad[0]),
+                           dict(expected=f"{ncols} values per row",
+                                fix="repair or remove the line"))
+            return found
+    nan_rows = np.flatnonzero(np.isnan(df[ncols - 1].to_numpy()))
+    if nan_rows.size:
+        lines = job.source.text().split(b"\n")
+        for r in nan_rows.tolist():
+            ntok = len(_split_fields(lines[r].decode("utf-8", "replace"), job.sep))
+            if ntok >= ncols:
+                continue  # a genuine 'nan' written by the engine
+            if r != job.rows - 1:
+                found.error = (f"row has {ntok} values but the header at line "
+                               f"{job.header_line} names {ncols}", r, per_row)
+                return found
+            found.short_last = (r, ntok)
+    end = job.row0 + job.rows
+    for a, col in zip(job.arrays, job.keep, strict=True):
+        a[job.row0: end] = df[col].to_numpy()
+    return found
+
+
 class _ViewReader:
     """Minimal file object over memoryviews joined by newlines, for pandas.
 
-    Hands the parser the data segments of a block without copying them into one string.
+    The first read returns all the text, whatever size pandas asks for: its C parser takes
+    any length, and then tokenises it without taking the GIL again (asking in 256 kB pieces
+    would make a worker thread wait for the GIL over a hundred times per chunk).
     """
 
     def __init__(self, views: list[memoryview]) -> None:
         self._views = views
-        self._i = 0
-        self._pos = 0
-        self._owe = False
-        self.nbytes = sum(v.nbytes for v in views) + len(views) - 1
+        self._done = False
 
     def read(self, n: int = -1) -> bytes:
-        if n is None or n < 0:
-            n = self.nbytes
-        out: list[bytes] = []
-        views = self._views
-        while n > 0 and self._i < len(views):
-            if self._owe:
-                out.append(b"\n")
-                n -= 1
-                self._owe = False
-                continue
-            v = views[self._i]
-            piece = bytes(v[self._pos: self._pos + n])
-            out.append(piece)
-            n -= len(piece)
-            self._pos += len(piece)
-            if self._pos >= v.nbytes:
-                self._i += 1
-                self._pos = 0
-                self._owe = self._i < len(views)
-        return b"".join(out)
+        if self._done:
+            return b""
+        self._done = True
+        return self.text()
 
     def seek(self, pos: int) -> None:
         if pos != 0:  # pragma: no cover - pandas only rewinds
             raise ValueError("only a rewind is supported")
-        self._i = 0
-        self._pos = 0
-        self._owe = False
+        self._done = False
 
     def text(self) -> bytes:
-        return b"\n".join(bytes(v) for v in self._views)
+        views = self._views
+        return bytes(views[0]) if len(views) == 1 else b"\n".join(bytes(v) for v in views)
 
     def release(self) -> None:
         for v in self._views:
@@ -805,6 +918,30 @@ class _ViewReader:
 
     def __iter__(self) -> Any:  # pandas checks for an iterable file object
         return iter(())
+
+
+class _InlinePool:
+    """Runs each job at once in the calling thread (small files: no threads to start)."""
+
+    def submit(self, fn: Callable[[_Job], _Found], job: _Job) -> Future[_Found]:
+        fut: Future[_Found] = Future()
+        try:
+            fut.set_result(fn(job))
+        except BaseException as exc:  # handed to the caller by fut.result()
+            fut.set_exception(exc)
+        return fut
+
+    def shutdown(self, wait: bool = True, cancel_futures: bool = False) -> None:
+        pass
+
+
+def _workers() -> int:
+    """Parse threads: the CPUs this process may use, at most 4."""
+    try:
+        n = len(os.sched_getaffinity(0))
+    except AttributeError:  # pragma: no cover - not on Linux
+        n = os.cpu_count() or 1
+    return max(1, min(n, 4))
 
 
 def _find_bad_token(data: bytes, sep: str) -> tuple[int, str]:
@@ -821,7 +958,7 @@ def scan(
     opened: Opened,
     *,
     mode: str,
-    want: Callable[[dict[str, str]], set[str] | None] | None = None,
+    want: Callable[[dict[str, str]], Collection[str] | None] | None = None,
     progress: bool = False,
 ) -> ScanResult:
     """Scan an opened text file into blocks.
@@ -835,7 +972,9 @@ def scan(
         ``table``: headers may be ``#`` comments and the delimiter is sniffed per block.
     want : callable, optional
         Given a block's canonical-name map, the canonical names to keep (None keeps all
-        columns). Unkept columns are skipped by the parser.
+        columns). Unkept columns are skipped by the parser. Kept columns are stored as the
+        rows of one array, in the order given when `want` returns a list or tuple (in file
+        order otherwise).
     progress : bool
         Show a progress bar on stderr for large files.
     """

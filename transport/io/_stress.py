@@ -54,6 +54,28 @@ def _uniform(axis: np.ndarray, *, exact: bool) -> tuple[float, int | None]:
     return stride, None
 
 
+def _rows_of_one_array(rows: list[np.ndarray]) -> np.ndarray | None:
+    """The (k, n) view whose rows are `rows`, when they are consecutive rows (same columns)
+    of one C-ordered float64 array; None otherwise."""
+    base = rows[0].base
+    if not (isinstance(base, np.ndarray) and base.ndim == 2 and base.dtype == np.float64
+            and base.flags.c_contiguous and base.flags.writeable):
+        return None
+    n = rows[0].shape[0]
+    pitch = base.strides[0]
+    start = rows[0].__array_interface__["data"][0]
+    for i, r in enumerate(rows):
+        if (r.base is not base or r.shape != (n,) or r.strides != (8,)
+                or r.__array_interface__["data"][0] != start + i * pitch):
+            return None
+    row, col = divmod(start - base.__array_interface__["data"][0], pitch)
+    col //= 8
+    if row < 0 or row + len(rows) > base.shape[0] or col + n > base.shape[1]:
+        return None
+    view = base[row: row + len(rows), col: col + n]
+    return view if view.__array_interface__["data"][0] == start else None
+
+
 def _check_values(values: np.ndarray, table: Table, names: list[str], spath: str | None,
                   *, positive: bool = False, scale: float = 1.0) -> None:
     """InputError at the line of the first non-finite value of the (k, n) array `values`
@@ -246,22 +268,33 @@ def stress_from_table(
         )
 
     # ---- pressure tensor ----------------------------------------------------------------------
-    pressure = np.empty((6, n), dtype=np.float64)
     f = units.pressure
-    symmetrised = []
-    for i, c in enumerate(TENSOR_ORDER):
-        a = cols[canon[c]]
-        transposed = "p" + c[2] + c[1]
-        if c[1] != c[2] and transposed in canon:
-            np.add(a, cols[canon[transposed]], out=pressure[i])
-            pressure[i] *= 0.5 * f
-            symmetrised.append(f"{c}=({canon[c]}+{canon[transposed]})/2")
-        else:
-            np.multiply(a, f, out=pressure[i])
-        if _consume:
-            keep_for = {canon.get("volume"), canon.get("temperature"), axis_name}
-            if canon[c] not in keep_for:
-                cols.pop(canon[c], None)
+    symmetrised: list[str] = []
+    in_place = None
+    if _consume and not any(c in canon for c in ("pyx", "pzx", "pzy")):
+        in_place = _rows_of_one_array([cols[canon[c]] for c in TENSOR_ORDER])
+    if in_place is not None:
+        # The reader's own storage (rows of one array), converted where it is: no copy.
+        pressure = in_place
+        if f != 1.0:
+            pressure *= f
+        for c in TENSOR_ORDER:
+            cols.pop(canon[c], None)
+    else:
+        pressure = np.empty((6, n), dtype=np.float64)
+        for i, c in enumerate(TENSOR_ORDER):
+            a = cols[canon[c]]
+            transposed = "p" + c[2] + c[1]
+            if c[1] != c[2] and transposed in canon:
+                np.add(a, cols[canon[transposed]], out=pressure[i])
+                pressure[i] *= 0.5 * f
+                symmetrised.append(f"{c}=({canon[c]}+{canon[transposed]})/2")
+            else:
+                np.multiply(a, f, out=pressure[i])
+            if _consume:
+                keep_for = {canon.get("volume"), canon.get("temperature"), axis_name}
+                if canon[c] not in keep_for:
+                    cols.pop(canon[c], None)
 
     _check_values(pressure, table, [canon[c] for c in TENSOR_ORDER], spath, scale=f)
 
