@@ -31,6 +31,7 @@ from bench_read_log import (  # noqa: E402
     parse_common_args,
     remove_generated,
     run_child,
+    warm_cache,
 )
 
 _CHILD = r"""
@@ -69,6 +70,7 @@ def main(argv: list[str] | None = None) -> int:
           f"{os.getloadavg()[0]:.2f}")
     best: dict[str, dict] = {}
     for _ in range(args.repeat):
+        warm_cache(bare, log)
         for which, path in (("pandas", bare), ("green-kubo", log), ("gk+einstein", log)):
             r = _child(which, path)
             if which not in best or r["seconds"] < best[which]["seconds"]:

@@ -285,6 +285,7 @@ def test_chunk_boundaries_do_not_change_the_result(tmp_path_factory, chunk, seed
         np.testing.assert_array_equal(t.column(name), ref.column(name))
     assert t.line_map == ref.line_map
     assert t.warnings == ref.warnings
+    assert t.source.sha256 == ref.source.sha256 == hashlib.sha256(p.read_bytes()).hexdigest()
     np.testing.assert_array_equal(t.column("pxy"), np.concatenate([v1[:, 5], v2[1:, 5]]))
     lines = text.splitlines()
     for r in range(0, t.n, 7):
@@ -352,6 +353,7 @@ def test_compressed_logs_read_the_same(tmp_path, suffix, opener):
     assert a.line_map == b.line_map
     # the checksum is of the file as stored (compressed bytes)
     assert b.source.sha256 == hashlib.sha256(comp.read_bytes()).hexdigest()
+    assert a.source.sha256 == hashlib.sha256(plain.read_bytes()).hexdigest()
     # found by content, not by name
     renamed = tmp_path / "mystery.dat"
     renamed.write_bytes(comp.read_bytes())

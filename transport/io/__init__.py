@@ -285,13 +285,12 @@ def _read(
     except ValueError as exc:
         raise InputError(str(exc), path=spath, fix="pass --run N, A-B, last or all") from None
     fmt, comp = sniff(p)
-    big = p.stat().st_size > (8 << 20)
-    digest = FileHash(p, background=big)
     if fmt in ("lammps-log", "table"):
         want_fn = None if want is None else (lambda canon: want)
-        with open_bytes(p) as op:
+        with open_bytes(p, digest=True) as op:  # hashed as it is read: no second pass
             result = scan(op, mode="log" if fmt == "lammps-log" else "table", want=want_fn,
                           progress=progress)
+            sha256 = op.sha256()
         if fmt == "lammps-log" and not any(b.n for b in result.blocks) and \
                 result.orphan_header is None:
             # named like a log but holding no thermo block: try it as a plain table
@@ -304,10 +303,11 @@ def _read(
             result.warnings.append(
                 f"{spath}: named {suffix} but not compressed; read as plain text")
         return assemble(result, path=p, fmt=fmt, run=run_spec, units=units,
-                        timestep=timestep, sha256=digest.result(), compression=comp,
+                        timestep=timestep, sha256=sha256, compression=comp,
                         with_time=want is None)
 
     # Formats holding one table.
+    digest = FileHash(p, background=p.stat().st_size > (8 << 20))
     if run_spec not in (None, 1, "all", "last", (1, 1)):
         raise InputError(f"a {fmt} file holds one table; run {run!r} does not exist",
                          path=spath, fix="drop --run for this file")

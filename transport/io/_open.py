@@ -12,7 +12,7 @@ import threading
 import zlib
 from dataclasses import dataclass
 from pathlib import Path
-from typing import IO
+from typing import IO, Any
 
 from ..errors import InputError
 
@@ -74,20 +74,28 @@ def compression_of(path: Path) -> str | None:
 
 
 class _Counting:
-    """File wrapper that counts bytes read from the disk (for progress bars)."""
+    """File wrapper that counts the bytes read from the disk (for progress bars) and, when
+    given a hash object, feeds them to it (the checksum of exactly the bytes read, without
+    reading the file twice)."""
 
-    def __init__(self, fh: IO[bytes]) -> None:
+    def __init__(self, fh: IO[bytes], hasher: Any = None) -> None:
         self._fh = fh
         self.bytes_read = 0
+        self.hasher = hasher
 
     def read(self, n: int = -1) -> bytes:
         data = self._fh.read(n)
         self.bytes_read += len(data)
+        if self.hasher is not None and data:
+            self.hasher.update(data)
         return data
 
     def readinto(self, b: bytearray | memoryview) -> int:
         n = self._fh.readinto(b)
         self.bytes_read += n or 0
+        if self.hasher is not None and n:
+            with memoryview(b) as mv:
+                self.hasher.update(mv[:n])
         return n
 
     def readable(self) -> bool:
@@ -118,6 +126,15 @@ class Opened:
         self.stream.close()
         self.raw.close()
 
+    def sha256(self) -> str | None:
+        """SHA-256 of the whole file (opened with ``digest=True``): the bytes not yet read
+        are read now. None if the file was opened without a digest."""
+        if self.raw.hasher is None:
+            return None
+        while self.raw.read(1 << 22):
+            pass
+        return str(self.raw.hasher.hexdigest())
+
     def __enter__(self) -> Opened:
         return self
 
@@ -125,10 +142,12 @@ class Opened:
         self.close()
 
 
-def open_bytes(path: Path) -> Opened:
-    """Open `path` for reading its (decompressed) bytes."""
+def open_bytes(path: Path, *, digest: bool = False) -> Opened:
+    """Open `path` for reading its (decompressed) bytes; with `digest`, the raw bytes are
+    hashed as they are read (see :meth:`Opened.sha256`)."""
     comp = compression_of(path)
-    raw = _Counting(open(path, "rb"))  # closed by Opened.close
+    raw = _Counting(open(path, "rb"),  # closed by Opened.close
+                    hashlib.sha256() if digest else None)
     stream: IO[bytes]
     if comp == "gzip":
         stream = gzip.GzipFile(fileobj=raw, mode="rb")  # type: ignore[arg-type]

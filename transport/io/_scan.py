@@ -28,6 +28,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from .._memory import bulk_empty
 from .._progress import progress_bar
 from ..errors import InputError
 from ._columns import TENSOR_ORDER, map_columns
@@ -513,7 +514,7 @@ class _Scanner:
         old = blk.store
         if old is not None:
             cap = max(cap, 2 * need)
-        store = np.empty((len(blk.keep), cap), dtype=np.float64)
+        store = bulk_empty((len(blk.keep), cap))
         if old is not None:
             store[:, : blk.n] = old[:, : blk.n]
         blk.store = store

@@ -55,25 +55,24 @@ def _uniform(axis: np.ndarray, *, exact: bool) -> tuple[float, int | None]:
 
 
 def _rows_of_one_array(rows: list[np.ndarray]) -> np.ndarray | None:
-    """The (k, n) view whose rows are `rows`, when they are consecutive rows (same columns)
-    of one C-ordered float64 array; None otherwise."""
+    """The (k, n) view whose rows are `rows`, when they lie in one writeable float64 buffer
+    at a constant pitch (rows of the reader's store); None otherwise."""
     base = rows[0].base
-    if not (isinstance(base, np.ndarray) and base.ndim == 2 and base.dtype == np.float64
+    if not (isinstance(base, np.ndarray) and base.dtype == np.float64
             and base.flags.c_contiguous and base.flags.writeable):
         return None
     n = rows[0].shape[0]
-    pitch = base.strides[0]
-    start = rows[0].__array_interface__["data"][0]
-    for i, r in enumerate(rows):
-        if (r.base is not base or r.shape != (n,) or r.strides != (8,)
-                or r.__array_interface__["data"][0] != start + i * pitch):
-            return None
-    row, col = divmod(start - base.__array_interface__["data"][0], pitch)
-    col //= 8
-    if row < 0 or row + len(rows) > base.shape[0] or col + n > base.shape[1]:
+    if any(r.base is not base or r.shape != (n,) or r.strides != (8,) for r in rows):
         return None
-    view = base[row: row + len(rows), col: col + n]
-    return view if view.__array_interface__["data"][0] == start else None
+    starts = [r.__array_interface__["data"][0] for r in rows]
+    pitch = starts[1] - starts[0] if len(rows) > 1 else 8 * n
+    if pitch < 8 * n or any(a != starts[0] + i * pitch for i, a in enumerate(starts)):
+        return None
+    lo = base.__array_interface__["data"][0]
+    if starts[0] < lo or starts[-1] + 8 * n > lo + base.nbytes:
+        return None
+    return np.lib.stride_tricks.as_strided(rows[0], shape=(len(rows), n),
+                                           strides=(pitch, 8), writeable=True)
 
 
 def _check_values(values: np.ndarray, table: Table, names: list[str], spath: str | None,
