@@ -81,7 +81,10 @@ def _set_common(obj: StressSeries | PositionSeries) -> None:
 def _check_finite(name: str, a: np.ndarray, source: Source) -> None:
     from .errors import InputError
 
-    bad = ~np.isfinite(a)
+    with np.errstate(over="ignore", invalid="ignore"):
+        if np.isfinite(np.sum(a)):  # one pass, no temporary: nan and inf would propagate
+            return
+    bad = ~np.isfinite(a)  # (or the sum overflowed: look value by value)
     if bad.any():
         idx = np.argwhere(bad)[0]
         raise InputError(

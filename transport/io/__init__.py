@@ -191,6 +191,10 @@ class Table:
         ``gzip``, ``bzip2`` or ``xz`` if the file was compressed.
     notes : tuple of str
         Minor remarks (entries ignored, ...).
+    bounds : dict
+        Column name -> (smallest, largest) value, where the reader found them while parsing
+        (nan when a value is nan). The values of the column lie within; they may be the
+        bounds of a larger set of rows (a whole run of which part was kept).
     """
 
     columns: dict[str, np.ndarray]
@@ -206,6 +210,7 @@ class Table:
     timestep_source: str = ""
     compression: str | None = None
     notes: tuple[str, ...] = ()
+    bounds: dict[str, tuple[float, float]] = field(default_factory=dict)
 
     @property
     def n(self) -> int:

@@ -470,6 +470,13 @@ def assemble(
                 pos += m
             columns[nm] = out
     canonical = {c: nm for c, nm in first_blk.canonical.items() if nm in columns}
+    # Bounds of the kept columns over the whole blocks used (the rows kept lie within).
+    bounds: dict[str, tuple[float, float]] = {}
+    part_bounds = [p.block.bounds() for p in used]
+    if all(nm in b for b in part_bounds for nm in columns):
+        for nm in columns:
+            los, his = zip(*(b[nm] for b in part_bounds), strict=True)
+            bounds[nm] = (float(np.min(los)), float(np.max(his)))
 
     # Row -> file line map over the joined rows.
     line_map: list[tuple[int, int]] = []
@@ -565,7 +572,7 @@ def assemble(
         columns=columns, canonical=canonical, units=unit_sys, timestep=ts_value, time=time,
         source=source, warnings=tuple(dict.fromkeys(warnings)), blocks=tuple(infos),
         line_map=tuple(line_map), units_source=units_source, timestep_source=ts_source,
-        compression=compression, notes=tuple(notes),
+        compression=compression, notes=tuple(notes), bounds=bounds,
     )
 
 

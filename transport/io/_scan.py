@@ -115,6 +115,8 @@ class ScanBlock:
     context: LogContext | None = None
     arrays: list[np.ndarray] = field(default_factory=list)  # rows of `store`, then trimmed
     store: np.ndarray | None = None  # (kept columns, capacity): one row per kept column
+    lo: np.ndarray | None = None  # bounds of each kept column over the rows read (nan if
+    hi: np.ndarray | None = None  # any value is nan); those of a trimmed part lie within
     n: int = 0
     map_rows: list[int] = field(default_factory=list)
     map_lines: list[int] = field(default_factory=list)
@@ -136,6 +138,13 @@ class ScanBlock:
     def columns(self) -> dict[str, np.ndarray]:
         """Kept columns (views of the filled part)."""
         return {self.names[j]: a[: self.n] for j, a in zip(self.keep, self.arrays, strict=True)}
+
+    def bounds(self) -> dict[str, tuple[float, float]]:
+        """Smallest and largest value of each kept column (nan if a value is nan)."""
+        if self.lo is None or self.hi is None:
+            return {}
+        return {self.names[j]: (float(self.lo[i]), float(self.hi[i]))
+                for i, j in enumerate(self.keep)}
 
     def line_of(self, row: int) -> int | None:
         """1-based file line of block row `row`."""
@@ -556,6 +565,9 @@ class _Scanner:
         if found.short_last is not None:
             r, seen = found.short_last
             blk.short_last = (job.file_line(r), seen)
+        if found.lo is not None and found.hi is not None:
+            blk.lo = found.lo if blk.lo is None else np.minimum(blk.lo, found.lo)
+            blk.hi = found.hi if blk.hi is None else np.maximum(blk.hi, found.hi)
 
     def _release(self, buf: bytearray) -> None:
         """A job is done with `buf`: keep it for reuse once nothing else uses it."""
@@ -797,6 +809,8 @@ class _Found:
     error: tuple[str, int, dict[str, str]] | None = None
     short_last: tuple[int, int] | None = None  # (row, values seen) of a short final row
     trailing_off: bool = False
+    lo: np.ndarray | None = None  # smallest value of each kept column (nan if any is nan)
+    hi: np.ndarray | None = None  # largest value of each kept column (nan if any is nan)
 
 
 def _read_rows(job: _Job, trailing: bool) -> pd.DataFrame:
@@ -881,8 +895,12 @@ def _parse_job(job: _Job) -> _Found:
                 return found
             found.short_last = (r, ntok)
     end = job.row0 + job.rows
-    for a, col in zip(job.arrays, job.keep, strict=True):
-        a[job.row0: end] = df[col].to_numpy()
+    lo, hi = np.empty(len(job.keep)), np.empty(len(job.keep))
+    for j, (a, col) in enumerate(zip(job.arrays, job.keep, strict=True)):
+        v = df[col].to_numpy()
+        a[job.row0: end] = v
+        lo[j], hi[j] = v.min(), v.max()  # while the values are in the cache
+    found.lo, found.hi = lo, hi
     return found
 
 

@@ -79,10 +79,18 @@ def _check_values(values: np.ndarray, table: Table, names: list[str], spath: str
                   *, positive: bool = False, scale: float = 1.0) -> None:
     """InputError at the line of the first non-finite value of the (k, n) array `values`
     (columns `names`), of one so large that sums of squares (autocorrelations) overflow
-    double precision, or, with `positive`, of one that is not positive."""
+    double precision, or, with `positive`, of one that is not positive.
+
+    When the reader found the bounds of the columns while parsing (``table.bounds``, in
+    file units; `scale` converts them like `values`) and they pass, nothing is scanned.
+    """
     values = values.reshape(-1, values.shape[-1])
     n = values.shape[1]
     limit = float(np.sqrt(np.finfo(np.float64).max / max(n, 1))) / 10
+    if all(nm in table.bounds for nm in names):
+        b = np.array([table.bounds[nm] for nm in names]) * scale  # nan stays nan
+        if np.all(np.abs(b) < limit) and (not positive or np.all(b > 0)):  # False for nan
+            return
     for lo in range(0, n, _CHUNK):
         block = values[:, lo: lo + _CHUNK]
         ok = np.abs(block) < limit  # False for nan and inf too
@@ -207,7 +215,12 @@ def stress_from_table(
 
     # ---- volume -----------------------------------------------------------------------------
     vol_file = None
-    if "volume" in canon:
+    vol_bounds = table.bounds.get(canon.get("volume", ""), (np.nan, np.nan))
+    if "volume" in canon and vol_bounds[0] == vol_bounds[1] and vol_bounds[0] > 0:
+        # Constant (the reader saw every value equal it): no array, nothing to scan.
+        vol_file = np.full(1, vol_bounds[0] * units.volume)
+        vol_how = f"column '{canon['volume']}'"
+    elif "volume" in canon:
         vol_file = cols[canon["volume"]] * units.volume
         vol_how = f"column '{canon['volume']}'"
     elif all(c in canon for c in ("lx", "ly", "lz")):
