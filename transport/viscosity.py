@@ -41,6 +41,7 @@ from typing import Literal
 import numpy as np
 from scipy import optimize, stats
 
+from ._parallel import thread_map
 from .errors import InputError, RunTooShortError
 from .estimate import Estimate
 from .series import StressSeries
@@ -527,10 +528,13 @@ class ViscosityAnalysis:
 def _running_integrals(prep: _Prepared, weights: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Per-piece weighted stress ACF (internal pressure^2) and running integral (viscosity)."""
     lag = prep.max_lag
-    acfs = np.empty((len(prep.pieces), lag + 1))
-    for i, pc in enumerate(prep.pieces):
-        acfs[i] = weighted_autocorrelation([pc.stress], weights, max_lag=lag, mix=_TRACELESS,
-                                           offset=pc.offset)[0]
+
+    def acf(pc: _Piece) -> np.ndarray:
+        return weighted_autocorrelation([pc.stress], weights, max_lag=lag, mix=_TRACELESS,
+                                        offset=pc.offset, workers=1)[0]
+
+    # one piece per thread: the FFTs, products and copies release the GIL
+    acfs = np.array(thread_map(acf, prep.pieces)).reshape(len(prep.pieces), lag + 1)
     pref = np.array([pc.prefactor for pc in prep.pieces])
     integ = np.zeros_like(acfs)
     # trapezoid rule: running integral of the sampled ACF

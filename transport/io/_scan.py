@@ -17,7 +17,6 @@ commands echoed in the log (``units``, ``timestep``, ``compute ... pressure``, `
 from __future__ import annotations
 
 import csv
-import os
 import re
 from collections import deque
 from collections.abc import Callable, Collection
@@ -29,6 +28,7 @@ import numpy as np
 import pandas as pd
 
 from .._memory import bulk_empty
+from .._parallel import available_cpus
 from .._progress import progress_bar
 from ..errors import InputError
 from ._columns import TENSOR_ORDER, map_columns
@@ -956,11 +956,7 @@ class _InlinePool:
 
 def _workers() -> int:
     """Parse threads: the CPUs this process may use, at most 4."""
-    try:
-        n = len(os.sched_getaffinity(0))
-    except AttributeError:  # pragma: no cover - not on Linux
-        n = os.cpu_count() or 1
-    return max(1, min(n, 4))
+    return min(available_cpus(), 4)
 
 
 def _find_bad_token(data: bytes, sep: str) -> tuple[int, str]:
