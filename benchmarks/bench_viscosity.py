@@ -2,7 +2,9 @@
 
 Uses the log generator of ``bench_read_log.py`` (an engine-format thermo log of ``--rows``
 production rows plus a file holding only its numeric lines). Side by side, each in a fresh
-process, alternating, ``--repeat`` times (best kept):
+process, alternating, ``--repeat`` times (best kept, and the median over the rounds of each
+round's ratio to pandas); before each run only the file it reads is in the page cache (see
+``bench_read_log.warm_cache``):
 
 * pandas: ``pd.read_csv(bare, sep=' ', skipinitialspace=True, header=None)``;
 * ``transport.io.load_stress`` + ``transport.viscosity.analyse_viscosity`` (Green–Kubo with
@@ -20,6 +22,7 @@ Usage::
 from __future__ import annotations
 
 import os
+import statistics
 import sys
 from pathlib import Path
 
@@ -69,18 +72,26 @@ def main(argv: list[str] | None = None) -> int:
     print(f"data: {log} ({log.stat().st_size / 1e6:.0f} MB); load average "
           f"{os.getloadavg()[0]:.2f}")
     best: dict[str, dict] = {}
+    rounds: list[dict[str, float]] = []
     for _ in range(args.repeat):
+        times: dict[str, float] = {}
         for which, path in (("pandas", bare), ("green-kubo", log), ("gk+einstein", log)):
             warm_cache(path, *({bare, log} - {path}))
             r = _child(which, path)
+            times[which] = r["seconds"]
             if which not in best or r["seconds"] < best[which]["seconds"]:
                 best[which] = r
+        rounds.append(times)
     base = best["pandas"]["seconds"]
     print(f"\n{'what':<14}{'rows':>10}{'total s':>9}{'read s':>8}{'vs pandas':>11}"
-          f"{'peak extra MB':>15}")
+          f"{'median ratio':>14}{'peak extra MB':>15}")
     for which, r in best.items():
+        paired = statistics.median(t[which] / t["pandas"] for t in rounds)
         print(f"{which:<14}{r['rows']:>10d}{r['seconds']:>9.2f}{r['read']:>8.2f}"
-              f"{r['seconds'] / base:>11.2f}{r['extra_kib'] * 1024 / 1e6:>15.0f}")
+              f"{r['seconds'] / base:>11.2f}{paired:>14.2f}"
+              f"{r['extra_kib'] * 1024 / 1e6:>15.0f}")
+    print("(best of the rounds; 'median ratio': median over rounds of the time over that "
+          "round's pandas time)")
     print(f"\ngoal: green-kubo end to end within 1.5x of pandas; load average now "
           f"{os.getloadavg()[0]:.2f} (2 cores shared)")
     remove_generated(args, log, bare)
