@@ -1,9 +1,12 @@
 """Weighted sums of autocorrelations and MSDs of several series, blocked FFTs, bounded lag.
 
-When only lags up to ``max_lag`` are needed and the series are long, the series is cut into
-blocks of ``B`` samples and each block is correlated with itself plus the next ``max_lag``
-samples. The cross-spectra of all blocks and all (weighted) components are summed in the
-frequency domain, so a single inverse FFT gives the result. Each FFT has ~2^16 points,
+When only lags up to ``max_lag`` (k) are needed and the series are long, the series is cut
+into blocks of ``B`` samples. For short lags (k at most a quarter of the transform) each
+block is transformed once and correlated with itself, and the pairs that straddle a block
+boundary are added from the k samples either side of it (a transform of ~2k points); for
+long lags each block is correlated with itself plus the next k samples. The spectra of all
+blocks and all (weighted) components are summed in the frequency domain, so one inverse FFT
+gives the result. Each FFT has ~2^16 points,
 which runs about 2.7x faster per point than one giant FFT on this class of machine and keeps
 memory bounded by a batch of blocks.
 
@@ -52,6 +55,13 @@ def _lag_sums(
     m = np.asarray(mix, dtype=np.float64)[sel]
     off = None if offset is None else np.asarray(offset, dtype=np.float64)[sel, None]
     acc = np.zeros(nfft // 2 + 1, dtype=np.complex128)
+    # Short lags (k <= nfft / 4): each block is transformed once and correlated with itself;
+    # the pairs that straddle a block boundary (t in block j, t + k in block j + 1) come
+    # from the k samples either side of each boundary, a transform of 2 k points. Long
+    # lags: each block is correlated with itself plus the next k samples (two transforms).
+    short = 4 * k <= nfft
+    nbd = _fft.next_fast_len(2 * k, real=True) if short and k > 0 else 0
+    cross = np.zeros(nbd // 2 + 1, dtype=np.complex128) if nbd else None
     per = _BLOCKS_PER_BATCH
     raw = np.zeros((c_in, per * b + k))
     for j0 in range(0, nblocks, per):
@@ -64,14 +74,31 @@ def _lag_sums(
         y = m @ raw[:, : (j1 - j0) * b + k]
         if off is not None:
             y[:, :valid] -= off
-        # heads: blocks of b samples (zero-padded to nfft); tails: the same plus k more
+        # heads: blocks of b samples (zero-padded to nfft)
         heads = y[:, : (j1 - j0) * b].reshape(len(sel), j1 - j0, b)
-        tails = np.lib.stride_tricks.sliding_window_view(y, b + k, axis=1)[:, ::b]
         fa = _fft.rfft(heads, n=nfft, axis=-1, workers=workers)
+        if short:
+            acc += np.einsum("c,cbf->f", w, fa.real**2 + fa.imag**2)
+            if cross is not None:
+                # the k samples before and after the end of each block of the batch
+                win = np.lib.stride_tricks.sliding_window_view(y, 2 * k, axis=1)[:, b - k:: b]
+                win = win[:, : j1 - j0]
+                ff = _fft.rfft(win[..., :k], n=nbd, axis=-1, workers=workers)
+                fs = _fft.rfft(win[..., k:], n=nbd, axis=-1, workers=workers)
+                fs *= np.conj(ff)
+                cross += np.einsum("c,cbf->f", w, fs)
+            continue
+        # tails: the same blocks plus the k samples after each
+        tails = np.lib.stride_tricks.sliding_window_view(y, b + k, axis=1)[:, ::b]
         fb = _fft.rfft(tails, n=nfft, axis=-1, workers=workers)
         fb *= np.conj(fa)
         acc += np.einsum("c,cbf->f", w, fb)
-    return _fft.irfft(acc, n=nfft, workers=workers)[: k + 1]
+    out = _fft.irfft(acc, n=nfft, workers=workers)[: k + 1]
+    if cross is not None:
+        # straddling pairs at lag q: sum_t f(t) s(t + q - k), index (q - k) mod nbd
+        xc = _fft.irfft(cross, n=nbd, workers=workers)
+        out += xc[(np.arange(k + 1) - k) % nbd]
+    return out
 
 
 def weighted_autocorrelation(
