@@ -25,9 +25,25 @@ def test_weighted_acf_equals_direct_sum(n):
     np.testing.assert_allclose(got, _direct_acf(x, w, k), rtol=0, atol=1e-12 * abs(got[0]))
 
 
+@pytest.mark.parametrize(("n", "k"), [(400_003, 3), (400_003, 16_000), (300_000, 40_000)])
+def test_short_and_long_lag_schemes_equal_one_big_transform(n, k):
+    """Both block schemes (one transform per block plus boundary windows for k up to a
+    quarter of the block transform; block plus k-sample tail above) against one zero-padded
+    FFT of the whole series (the Wiener-Khinchin identity, exact to rounding)."""
+    rng = np.random.default_rng(k)
+    x = rng.standard_normal((2, n)) + 0.5  # a mean: boundary pairs are not small
+    w = np.array([1.0, 0.3])
+    got = weighted_autocorrelation(x[None], w, max_lag=k)[0]
+    size = 1 << int(np.ceil(np.log2(2 * n)))
+    f = np.fft.rfft(x, size)
+    ref = (w[:, None] * np.fft.irfft(f.real**2 + f.imag**2, size)).sum(0)[: k + 1]
+    np.testing.assert_allclose(got, ref / (n - np.arange(k + 1)), rtol=0,
+                               atol=1e-12 * abs(got[0]))
+
+
 def test_mix_and_offset_equal_correlating_the_combinations():
     rng = np.random.default_rng(3)
-    x = rng.standard_normal((4, 70_000))
+    x = rng.standard_normal((4, 140_000))  # more than one block: boundary pairs too
     mix = rng.standard_normal((2, 4))
     off = np.array([0.3, -1.1])
     w = np.array([0.7, 0.3])
