@@ -76,6 +76,7 @@ from typing import Any, Literal
 import numpy as np
 from numpy.typing import ArrayLike
 
+from .._memory import bulk_empty
 from ..errors import InputError
 from ..series import PositionSeries, Source
 from ..units import UnitSystem, get_unit_system
@@ -163,7 +164,7 @@ class _Store:
                 # is left behind whatever happens next
                 Path(name).unlink(missing_ok=True)
         else:
-            self.array = np.empty((n_frames, n_part, 3), dtype=np.float32)
+            self.array = bulk_empty((n_frames, n_part, 3), np.float32)  # no huge pages
 
     def finish(self, n_used: int) -> np.ndarray:
         a = self.array[:n_used]
