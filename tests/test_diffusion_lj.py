@@ -86,3 +86,18 @@ def test_self_diffusion_matches_meier_laesecke_kabelac(dcd_series, dump_series):
     res_v = analyse_diffusion(dump_series)
     assert res_v.vacf == ()
     assert any("too far apart for the VACF" in n for n in res_v.notes)
+
+
+def test_a_dcd_cut_inside_its_last_frame_is_read_with_a_warning(tmp_path, dcd_series):
+    """An engine killed while writing leaves a partial last frame; MDAnalysis counts whole
+    frames from the file size and skips it silently, the reader says so (the DCD record
+    layout is the documented CHARMM/LAMMPS one; from memory)."""
+    cut = tmp_path / "cut.dcd"
+    cut.write_bytes(DCD.read_bytes()[:-5000])
+    s = load_trajectory(TOPOLOGY, cut, units="lj", timestep=0.005)[0]
+    assert s.n_frames == 400
+    frame = 3 * (4 * 1372 + 8) + 56  # x, y, z records and the unit cell record
+    assert any(f"ends {frame - 5000} bytes into a frame after frame 400" in w
+               for w in s.warnings)
+    assert not any("into a frame" in w for w in dcd_series.warnings)  # the complete file
+    np.testing.assert_array_equal(s.positions, dcd_series.positions[:400])

@@ -66,6 +66,7 @@ import math
 import os
 import re
 import shutil
+import struct
 import tempfile
 import warnings as _warnings
 from collections.abc import Sequence
@@ -625,6 +626,40 @@ class _DumpInfo:
     unwrapped: bool
     images: bool
     velocities: bool
+
+
+def _dcd_partial_tail(p: Path, n_frames: int, n_atoms: int) -> int | None:
+    """Bytes after the last whole frame of a DCD file (0 if it ends cleanly); None when its
+    layout is not the plain one this check knows (no fixed atoms) or does not match the
+    reader's frame count.
+
+    The layout (Fortran records: a control record of 20 integers, titles, the atom count,
+    then per frame an optional unit cell and the x, y, z records) is the CHARMM/NAMD/LAMMPS
+    DCD format as documented with those programs (from memory).
+    """
+    try:
+        size = p.stat().st_size
+        with open(p, "rb") as fh:
+            head = fh.read(4096)
+        for end in "<>":
+            if len(head) < 92 or struct.unpack(end + "i", head[:4])[0] != 84 \
+                    or head[4:8] != b"CORD":
+                continue
+            ic = struct.unpack(end + "20i", head[8:88])
+            pos = 92
+            n_title = struct.unpack(end + "i", head[pos: pos + 4])[0]
+            pos += 8 + n_title
+            natoms = struct.unpack(end + "3i", head[pos: pos + 12])[1]
+            pos += 12
+            if ic[8] != 0 or natoms != n_atoms:  # fixed atoms: the first frame differs
+                return None
+            frame = 3 * (4 * natoms + 8) + (4 * natoms + 8 if ic[11] else 0)
+            frame += 56 if ic[10] and ic[19] else 0
+            whole, tail = divmod(size - pos, frame)
+            return tail if whole == n_frames else None
+    except (OSError, struct.error, IndexError):
+        return None
+    return None
 
 
 def _dump_info(p: Path) -> _DumpInfo | None:
@@ -1336,6 +1371,12 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
     proc.check(final=True)
     res = coll.finish()
     warn = list(notes)
+    for p, n in zip(paths, lengths, strict=True):
+        tail = _dcd_partial_tail(p, n, n_atoms) if p.suffix.lower() == ".dcd" else None
+        if tail:
+            warn.append(f"{p}: the file ends {tail} bytes into a frame after frame {n} (the "
+                        "run probably stopped while writing it); that partial frame was "
+                        "not read")
     if duplicates:
         warn.append(f"{duplicates} frame(s) repeated at the boundary between parts were "
                     "read once")
