@@ -460,13 +460,14 @@ def _bad_runs(tmp_path: Path) -> dict[str, list[str]]:
         "mismatched atom counts": [str(other_top), str(traj)],
         "frames too far apart": [str(top), str(far_traj)],
         "empty selection": [str(top), str(traj), "--select", "name XYZ"],
+        "blank selection": [str(top), str(traj), "--select", "  "],
         "molecules without bonds": [str(top), str(traj), "--group-by", "molecule"],
     }
 
 
 @pytest.mark.parametrize("case", ["missing topology", "missing trajectory",
                                   "unreadable topology", "mismatched atom counts",
-                                  "frames too far apart", "empty selection",
+                                  "frames too far apart", "empty selection", "blank selection",
                                   "molecules without bonds"])
 def test_cli_bad_input_exit_2_one_line_nothing_written(tmp_path, case):
     args = _bad_runs(tmp_path)[case]
@@ -484,6 +485,7 @@ def test_cli_bad_input_exit_2_one_line_nothing_written(tmp_path, case):
               "unreadable topology": "cannot read the topology",
               "mismatched atom counts": "atoms", "frames too far apart": "too far apart",
               "empty selection": "matches no atoms",
+              "blank selection": "--select is empty",
               "molecules without bonds": "needs bonds"}[case]
     assert expect in lines[0]
 

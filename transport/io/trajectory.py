@@ -915,6 +915,11 @@ def _series_from(u: Any, top: Path, paths: list[Path], links: _PrivateLinks, *,
                  velocities: bool, memory_limit: float, scratch_dir: str | None,
                  progress: bool) -> list[PositionSeries]:
     """The selection, particles and species of `u`, then one series per replica."""
+    if not select.strip():
+        raise InputError("--select is empty (no selection string)", path=None,
+                         expected="an MDAnalysis selection string",
+                         fix="pass --select all (the default), or e.g. 'type 1' or "
+                             "'resname SOL'")
     try:
         with _warnings.catch_warnings():
             _warnings.simplefilter("ignore")
