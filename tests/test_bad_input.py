@@ -266,6 +266,20 @@ def _c_csv_duplicate_names(d):
     return [p], ["--units", "metal"], READ, "dupnames.csv:1:", "appears 2 times"
 
 
+def _c_decimal_commas(d):
+    # spreadsheet export in a decimal-comma locale: ';' separators, '1,5' numbers
+    rows = [r.replace(",", ";").replace(".", ",") for r in _tensor_rows()]
+    p = _csv(d / "comma.csv", "time;pxx;pyy;pzz;pxy;pxz;pyz;vol", rows)
+    return [p], ["--units", "metal"], READ, "comma.csv:2:", "decimal commas"
+
+
+def _c_fortran_exponents(d):
+    rows = [" ".join(f"{float(v):.6E}".replace("E", "D") for v in r.split(","))
+            for r in _tensor_rows()]
+    p = _csv(d / "fortran.dat", "time pxx pyy pzz pxy pxz pyz vol", rows)
+    return [p], ["--units", "metal"], READ, "fortran.dat:2:", "Fortran 'D' exponents"
+
+
 def _c_csv_duplicate_plain_name(d):
     rows = [f"{i},{i % 7},{-i % 5}" for i in range(100)]
     p = _csv(d / "dupplain.csv", "step,PotEng,PotEng", rows)
@@ -353,6 +367,8 @@ CASES = {
     "1e300 (squares overflow)": _c_huge,
     "non-numeric token": _c_token,
     "malformed number": _c_bad_number,
+    "decimal commas": _c_decimal_commas,
+    "Fortran D exponents": _c_fortran_exponents,
     "no units line, no --units": _c_no_units,
     "unknown --units": _c_unknown_units,
     "step gap": _c_gap,

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import itertools
+import re
 from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -263,6 +264,9 @@ def assemble(
                 "yaml styles are not read)",
                 fix="give the log of a run that printed thermo output",
             )
+        hint = _number_style(path)
+        if hint is not None:
+            raise hint
         raise InputError(
             "no table found", path=spath,
             expected="a header line naming the columns (e.g. '# step pxy pxz pyz' or "
@@ -574,6 +578,38 @@ def assemble(
         line_map=tuple(line_map), units_source=units_source, timestep_source=ts_source,
         compression=compression, notes=tuple(notes), bounds=bounds,
     )
+
+
+_COMMA_NUMBER = re.compile(r"^[+-]?\d+(?:,\d+)?(?:[eE][+-]?\d+)?$")
+_FORTRAN_EXP = re.compile(r"(?<![\w.])[+-]?(?:\d+\.?\d*|\.\d+)[dD][+-]?\d+(?![\w.])")
+
+
+def _number_style(path: Path) -> InputError | None:
+    """An error naming the number style when a table's rows use decimal commas or Fortran
+    'D' exponents (pandas reads neither as numbers, so no table is found)."""
+    from ._open import read_head
+
+    try:
+        head, _ = read_head(path)
+    except InputError:
+        return None
+    for k, raw in enumerate(head.decode("utf-8", "replace").splitlines()[:200], start=1):
+        toks = [t.strip() for t in re.split(r"[;\t]", raw) if t.strip()]
+        if len(toks) > 1 and all(_COMMA_NUMBER.match(t) for t in toks) and \
+                any("," in t for t in toks):
+            return InputError(
+                f"numbers are written with decimal commas ({raw.strip()[:40]!r})",
+                path=str(path), line=k,
+                expected="numbers with a decimal point (1.5, 2.3e-4), separated by commas, "
+                "blanks or tabs", fix="convert the decimal commas to points (and the ';' "
+                "separators to ',') before reading")
+        m = _FORTRAN_EXP.search(raw)
+        if m and not re.search(r"[A-Za-z_]", _FORTRAN_EXP.sub("", raw)):
+            return InputError(
+                f"numbers use Fortran 'D' exponents ({m.group(0)!r})", path=str(path),
+                line=k, expected="exponents written with E (1.0E+03)",
+                fix="replace the D exponents with E before reading")
+    return None
 
 
 def _span(chosen: list[ScanBlock]) -> str:
