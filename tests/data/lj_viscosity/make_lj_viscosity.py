@@ -49,16 +49,14 @@ with short runs written to a scratch folder of your choice).
 from __future__ import annotations
 
 import argparse
-import gzip
 import os
-import shutil
 import sys
 import time
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))  # the shared engine loader beside these folders
-from _lammps_engine import load_lammps  # noqa: E402
+from _lammps_engine import gzip_file, lj_equilibration, load_lammps  # noqa: E402
 
 
 # State point and model (reduced LJ units).
@@ -83,55 +81,14 @@ SETTLE_STEPS = 4000
 
 def replica_input(rep: int, production_steps: int) -> str:
     """LAMMPS input for one replica (rep is 1-based)."""
-    vseed = VELOCITY_SEED_BASE + rep
-    lseed_melt = LANGEVIN_MELT_SEED_BASE + rep
-    lseed_cool = LANGEVIN_COOL_SEED_BASE + rep
-    avg_every = 10
-    avg_repeat = AVERAGE_STEPS // avg_every
-    return f"""
-# Lennard-Jones fluid near the triple point, shear-viscosity test data, replica {rep}
-units           lj
-atom_style      atomic
-boundary        p p p
-lattice         fcc {RHO}
-region          box block 0 {NCELL} 0 {NCELL} 0 {NCELL}
-create_box      1 box
-create_atoms    1 box
-mass            1 1.0
-
-pair_style      lj/cut {RCUT}
-pair_coeff      1 1 1.0 1.0 {RCUT}
-pair_modify     tail yes
-neighbor        0.3 bin
-neigh_modify    every 1 delay 0 check yes
-timestep        {DT}
-
-# ---- equilibration 1: melt the lattice at T*=2.0 (Langevin) ----
-velocity        all create 2.0 {vseed} dist gaussian mom yes rot no
-fix             integ all nve
-fix             bath all langevin 2.0 2.0 0.5 {lseed_melt} zero yes
-thermo_style    custom step temp press pe etotal
-thermo          500
-run             {MELT_STEPS}
-
-# ---- equilibration 2: cool to T*={TEMP} (Langevin, damping 1 tau) ----
-unfix           bath
-fix             bath all langevin {TEMP} {TEMP} 1.0 {lseed_cool} zero yes
-run             {COOL_STEPS}
-
-# ---- equilibration 3: same thermostat, average the total energy per atom ----
-variable        etot equal etotal
-fix             eavg all ave/time {avg_every} {avg_repeat} {AVERAGE_STEPS} v_etot
-run             {AVERAGE_STEPS}
-
-# ---- equilibration 4: thermostat off; one velocity rescale so that E = <E>_NVT ----
-variable        tnew equal temp*(f_eavg-pe)/ke
-print           "canonical <etotal> = $(f_eavg:%.6f), rescaling to T = ${{tnew}}"
-velocity        all scale ${{tnew}}
-unfix           eavg
-unfix           bath
-run             {SETTLE_STEPS}
-
+    setup = lj_equilibration(
+        f"Lennard-Jones fluid near the triple point, shear-viscosity test data, replica {rep}",
+        rho=RHO, ncell=NCELL, rcut=RCUT, dt=DT, temp=TEMP,
+        seeds=(VELOCITY_SEED_BASE + rep, LANGEVIN_MELT_SEED_BASE + rep,
+               LANGEVIN_COOL_SEED_BASE + rep),
+        melt_thermo="step temp press pe etotal",
+        steps=(MELT_STEPS, COOL_STEPS, AVERAGE_STEPS, SETTLE_STEPS))
+    return setup + f"""
 # ---- production: NVE, pressure tensor every {THERMO_EVERY} steps ----
 reset_timestep  0
 thermo_style    custom step temp press pxx pyy pzz pxy pxz pyz vol etotal
@@ -148,11 +105,7 @@ def run_replica(lammps, rep: int, production_steps: int, out: Path) -> Path:
         lmp.commands_string(replica_input(rep, production_steps))
     finally:
         lmp.close()
-    gz = plain.with_name(plain.name + ".gz")
-    with open(plain, "rb") as src, gzip.open(gz, "wb", compresslevel=9) as dst:
-        shutil.copyfileobj(src, dst)
-    plain.unlink()
-    return gz
+    return gzip_file(plain)
 
 
 def main(argv: list[str] | None = None) -> int:
