@@ -489,8 +489,7 @@ class _Scanner:
         job = _Job(
             blk=blk, buffer=buf, source=source, lines=[(ln, nl) for _, _, ln, nl in segs],
             row0=blk.n,
-            rows=rows, arrays=list(blk.arrays), keep=list(blk.keep), ncols=blk.ncols,
-            sep=blk.sep, trailing=blk.trailing, header_line=blk.header_line,
+            rows=rows, arrays=list(blk.arrays), trailing=blk.trailing,
         )
         for ln, nl in job.lines:
             contiguous = bool(blk.map_rows) and (
@@ -511,8 +510,8 @@ class _Scanner:
         """Make room for `rows` more rows in the block's arrays.
 
         Capacity is estimated from the bytes left in the file; capacity never written costs
-        no resident memory. Growing waits for the jobs still writing into the old arrays,
-        then copies one column at a time.
+        no resident memory. Growing (rare: when the estimate was short, e.g. for compressed
+        input) waits for the jobs still writing into the old store, then copies it.
         """
         need = blk.n + rows
         if blk.store is not None and blk.store.shape[1] >= need:
@@ -785,12 +784,8 @@ class _Job:
     lines: list[tuple[int, int]]  # (file line of the first row, rows) of each segment
     row0: int
     rows: int
-    arrays: list[np.ndarray]
-    keep: list[int]
-    ncols: int
-    sep: str
-    trailing: bool
-    header_line: int
+    arrays: list[np.ndarray]  # the block's rows as when the job was made
+    trailing: bool  # whether rows end with a separator, as known when the job was made
     future: Future[_Found] | None = None
 
     def file_line(self, k: int) -> int:
@@ -821,16 +816,17 @@ def _read_rows(job: _Job, trailing: bool) -> pd.DataFrame:
     otherwise every column is converted, since pandas silently ignores surplus values
     outside `usecols`.
     """
-    kw: dict[str, Any] = dict(header=None, names=list(range(job.ncols + 1)),
+    blk = job.blk  # names, separator and kept columns are fixed for the block
+    kw: dict[str, Any] = dict(header=None, names=list(range(blk.ncols + 1)),
                               dtype=np.float64, engine="c", low_memory=False)
     if trailing:
-        kw["usecols"] = sorted({*job.keep, job.ncols - 1, job.ncols})
-    if job.sep == r"\s+":
+        kw["usecols"] = sorted({*blk.keep, blk.ncols - 1, blk.ncols})
+    if blk.sep == r"\s+":
         kw["sep"] = r"\s+"
     else:
-        kw["sep"] = job.sep
+        kw["sep"] = blk.sep
         kw["skipinitialspace"] = True
-    if job.sep in (" ", r"\s+"):
+    if blk.sep in (" ", r"\s+"):
         kw["quoting"] = csv.QUOTE_NONE  # a stray quote is a bad value, not a string
     job.source.seek(0)
     return pd.read_csv(job.source, **kw)
@@ -843,7 +839,8 @@ def _parse_job(job: _Job) -> _Found:
     only the job's own rows of the arrays; everything else is reported back.
     """
     found = _Found()
-    ncols = job.ncols
+    blk = job.blk
+    ncols = blk.ncols
     per_row = dict(expected=f"{ncols} values per row", fix="repair or remove the damaged line")
     trailing = job.trailing
     try:
@@ -858,19 +855,19 @@ def _parse_job(job: _Job) -> _Found:
         m = _FIELDS_RE.search(str(exc))
         if m:
             found.error = (f"row has {m.group(3)} values but the header at line "
-                           f"{job.header_line} names {ncols}", int(m.group(2)) - 1, per_row)
+                           f"{blk.header_line} names {ncols}", int(m.group(2)) - 1, per_row)
         else:
-            found.error = (f"cannot parse the rows of block {job.blk.index} ({exc})", 0, {})
+            found.error = (f"cannot parse the rows of block {blk.index} ({exc})", 0, {})
         return found
     except ValueError:
-        k, tok = _find_bad_token(job.source.text(), job.sep)
+        k, tok = _find_bad_token(job.source.text(), blk.sep)
         found.error = (f"{tok!r} is not a number", k, dict(
-            expected=f"{ncols} numbers per row (header at line {job.header_line})",
+            expected=f"{ncols} numbers per row (header at line {blk.header_line})",
             fix="repair or remove the damaged line"))
         return found
     if len(df) != job.rows:
         # Only a quoted field spanning lines can do this (rows are counted by newlines).
-        found.error = (f"cannot parse the rows of block {job.blk.index} (pandas read "
+        found.error = (f"cannot parse the rows of block {blk.index} (pandas read "
                        f"{len(df)} rows from {job.rows} lines; a quoted value spans lines?)",
                        0, {})
         return found
@@ -878,7 +875,7 @@ def _parse_job(job: _Job) -> _Found:
         bad = np.flatnonzero(~np.isnan(df[ncols].to_numpy()))
         if bad.size:
             found.error = (f"row has more values than the {ncols} names of the header at "
-                           f"line {job.header_line}", int(bad[0]),
+                           f"line {blk.header_line}", int(bad[0]),
                            dict(expected=f"{ncols} values per row",
                                 fix="repair or remove the line"))
             return found
@@ -886,17 +883,17 @@ def _parse_job(job: _Job) -> _Found:
     if nan_rows.size:
         lines = job.source.text().split(b"\n")
         for r in nan_rows.tolist():
-            ntok = len(_split_fields(lines[r].decode("utf-8", "replace"), job.sep))
+            ntok = len(_split_fields(lines[r].decode("utf-8", "replace"), blk.sep))
             if ntok >= ncols:
                 continue  # a genuine 'nan' written by the engine
             if r != job.rows - 1:
                 found.error = (f"row has {ntok} values but the header at line "
-                               f"{job.header_line} names {ncols}", r, per_row)
+                               f"{blk.header_line} names {ncols}", r, per_row)
                 return found
             found.short_last = (r, ntok)
     end = job.row0 + job.rows
-    lo, hi = np.empty(len(job.keep)), np.empty(len(job.keep))
-    for j, (a, col) in enumerate(zip(job.arrays, job.keep, strict=True)):
+    lo, hi = np.empty(len(blk.keep)), np.empty(len(blk.keep))
+    for j, (a, col) in enumerate(zip(job.arrays, blk.keep, strict=True)):
         v = df[col].to_numpy()
         a[job.row0: end] = v
         lo[j], hi[j] = v.min(), v.max()  # while the values are in the cache

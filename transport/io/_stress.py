@@ -215,13 +215,11 @@ def stress_from_table(
 
     # ---- volume -----------------------------------------------------------------------------
     vol_file = None
-    vol_bounds = table.bounds.get(canon.get("volume", ""), (np.nan, np.nan))
-    if "volume" in canon and vol_bounds[0] == vol_bounds[1] and vol_bounds[0] > 0:
-        # Constant (the reader saw every value equal it): no array, nothing to scan.
-        vol_file = np.full(1, vol_bounds[0] * units.volume)
-        vol_how = f"column '{canon['volume']}'"
-    elif "volume" in canon:
-        vol_file = cols[canon["volume"]] * units.volume
+    if "volume" in canon:
+        lo, hi = table.bounds.get(canon["volume"], (np.nan, np.nan))
+        # a constant column (the reader's bounds say so) needs no array and no scan
+        vol_file = np.full(1, lo * units.volume) if lo == hi else \
+            cols[canon["volume"]] * units.volume
         vol_how = f"column '{canon['volume']}'"
     elif all(c in canon for c in ("lx", "ly", "lz")):
         vol_file = (cols[canon["lx"]] * cols[canon["ly"]]) * cols[canon["lz"]]
