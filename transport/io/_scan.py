@@ -22,10 +22,9 @@ from collections import deque
 from collections.abc import Callable, Collection
 from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
-import pandas as pd
 
 from .._memory import bulk_empty
 from .._parallel import available_cpus
@@ -33,6 +32,9 @@ from .._progress import progress_bar
 from ..errors import InputError
 from ._columns import TENSOR_ORDER, map_columns
 from ._open import DECOMPRESSION_ERRORS, Opened
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 __all__ = ["ScanBlock", "ScanResult", "scan"]
 
@@ -828,6 +830,8 @@ def _read_rows(job: _Job, trailing: bool) -> pd.DataFrame:
         kw["skipinitialspace"] = True
     if blk.sep in (" ", r"\s+"):
         kw["quoting"] = csv.QUOTE_NONE  # a stray quote is a bad value, not a string
+    import pandas as pd  # imported on first use: reading trajectories does not need it
+
     job.source.seek(0)
     return pd.read_csv(job.source, **kw)
 
@@ -838,6 +842,8 @@ def _parse_job(job: _Job) -> _Found:
     Runs in a worker thread: pandas' C parser and numpy's copies release the GIL. Touches
     only the job's own rows of the arrays; everything else is reported back.
     """
+    from pandas.errors import ParserError
+
     found = _Found()
     blk = job.blk
     ncols = blk.ncols
@@ -846,12 +852,12 @@ def _parse_job(job: _Job) -> _Found:
     try:
         try:
             df = _read_rows(job, trailing)
-        except pd.errors.ParserError as exc:
+        except ParserError as exc:
             if not (trailing and "Too many columns specified" in str(exc)):
                 raise
             trailing, found.trailing_off = False, True
             df = _read_rows(job, trailing)
-    except pd.errors.ParserError as exc:
+    except ParserError as exc:
         m = _FIELDS_RE.search(str(exc))
         if m:
             found.error = (f"row has {m.group(3)} values but the header at line "

@@ -215,6 +215,7 @@ class _FrameProcessor:
         self._box0: np.ndarray | None = None
         self._last_box: np.ndarray | None = None
         self._half_tile: np.ndarray | None = None  # L0/2 tiled over atoms (n, 3)
+        self._off: np.ndarray | None = None  # constant box: u - x of the last frame
         self._identity = particles.is_identity(atom_masses.size)
         self._work_arrays: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
 
@@ -233,7 +234,7 @@ class _FrameProcessor:
         if box is not None:
             # tiled over atoms: comparisons stay on contiguous arrays (broadcasting a
             # length-3 axis is several times slower)
-            self._half_tile = np.tile(0.5 * box, (x.shape[0], 1))
+            self._half_tile = np.tile(0.5 * box, (x.shape[0], 1)).astype(x.dtype)
         self.stats.frames += 1
         if box is not None:
             self.stats.min_box = min(self.stats.min_box, float(box.min()))
@@ -273,8 +274,10 @@ class _FrameProcessor:
         st.frames += x.shape[0]
         if self.mode == "images":
             u = self._unwrap_images(x, box, images)
+            self._off = None  # the offsets follow from _u and _x when next needed
         elif box is not None and st.box_changed:
             u = self._unwrap_fluctuating(x, box)
+            self._off = None
         else:
             u = self._unwrap_constant(x, box)
         if box is not None:
@@ -283,60 +286,79 @@ class _FrameProcessor:
         self.check()
         return u
 
-    def _work(self, shape: tuple[int, ...]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Two float64 and one boolean work array of `shape`, reused from block to block.
+    def _work(self, shape: tuple[int, ...], dtype: np.dtype
+              ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Work arrays of `shape`, reused from block to block: the steps (`dtype`, that of
+        the coordinates), the continuous coordinates (float64) and a boolean mask.
 
         Fresh block-sized arrays would be page-faulted in on every block, which costs more
         than the arithmetic; the result of :meth:`unwrap` may be one of these, so it is
         valid until the next call.
         """
         have = self._work_arrays
-        if have is None or have[0].shape[0] < shape[0] or have[0].shape[1:] != shape[1:]:
-            have = (np.empty(shape), np.empty(shape), np.empty(shape, dtype=bool))
+        if (have is None or have[0].shape[0] < shape[0] or have[0].shape[1:] != shape[1:]
+                or have[0].dtype != dtype):
+            have = (np.empty(shape, dtype=dtype), np.empty(shape), np.empty(shape, dtype=bool))
             self._work_arrays = have
         b = shape[0]
         return have[0][:b], have[1][:b], have[2][:b]
-
-    def _steps(self, x: np.ndarray, d: np.ndarray) -> np.ndarray:
-        """Raw frame-to-frame differences into `d`, the previous block's last frame first.
-
-        Computed in float64 whatever the input (float32 coordinates differ exactly there).
-        """
-        np.subtract(x[1:], x[:-1], out=d[1:], dtype=np.float64)
-        np.subtract(x[0], self._x, out=d[0], dtype=np.float64)
-        return d
 
     def _unwrap_constant(self, x: np.ndarray, box: np.ndarray | None) -> np.ndarray:
         """No box, or a box constant so far: minimum-image steps of the raw coordinates.
 
         For a constant box the minimum image of a raw step equals that of the step between
-        the wrapped coordinates (they differ by whole box lengths), so nothing is wrapped.
+        the wrapped coordinates (they differ by whole box lengths), and adding the corrected
+        steps one after another is adding ``-L round(d / L)`` to a per-coordinate offset:
+        ``u(t) = x(t) + o(t)``, ``o(t) = o(t-1) - L round([x(t) - x(t-1)] / L)``. The offsets
+        change only where a step is longer than half a box (a few per cent of the steps of
+        wrapped coordinates), so the dense work is one difference, one comparison and one
+        addition per coordinate; the offsets are whole multiples of L, so ``u`` is exact.
         """
         st = self.stats
         if box is None:
             return x if self.mode != "displacement" else x.copy()
-        d, q, mask = self._work(x.shape)
-        self._steps(x, d)
-        # steps longer than half a box (a few per cent of them for wrapped coordinates):
-        # found with two passes, corrected one by one
-        np.abs(d, out=q)
-        jumps = np.flatnonzero(np.greater(q, self._half_tile, out=mask))
+        b = x.shape[0]
+        d, u, mask = self._work(x.shape, x.dtype)
+        # raw steps in the coordinates' own precision: only compared with half a box here;
+        # the steps that matter are recomputed in float64 below
+        np.subtract(x[1:], x[:-1], out=d[1:])
+        np.subtract(x[0], self._x, out=d[0])
+        if self.mode == "displacement":
+            # einsum, not a BLAS dot: multithreaded BLAS level-1 calls stall on a busy machine
+            st.sum_d2 += float(np.einsum("bij,bij->", d, d))
+            st.n_d += d.size
+        np.abs(d, out=d)
+        jumps = np.flatnonzero(np.greater(d, self._half_tile, out=mask))
         st.raw_jumps += int(jumps.size)
         if self.mode != "displacement":
             return x
+        if self._off is None:
+            self._off = self._u - self._x
+        np.add(x, self._off, out=u)
         if jumps.size:
-            flat = d.reshape(-1)
-            length = 2.0 * self._half_tile.reshape(-1)[jumps % self._half_tile.size]
-            flat[jumps] -= length * np.rint(flat[jumps] / length)
-        # einsum, not a BLAS dot: multithreaded BLAS level-1 calls stall on a busy machine
-        st.sum_d2 += float(np.einsum("bij,bij->", d, d))
-        st.n_d += d.size
-        # running sum frame by frame (numpy's cumsum along the first axis of a 3-D array is
-        # several times slower than these whole-frame additions)
-        np.add(d[0], self._u, out=d[0])
-        for k in range(1, d.shape[0]):
-            np.add(d[k], d[k - 1], out=d[k])
-        return d
+            flat = x.reshape(b, -1)
+            frame, col = np.divmod(jumps, flat.shape[1])
+            prev = np.empty(jumps.size)
+            first = frame == 0
+            prev[first] = self._x.reshape(-1)[col[first]]
+            prev[~first] = flat[frame[~first] - 1, col[~first]]
+            step = flat[frame, col] - prev
+            length = self._box0[col % 3]
+            inc = -length * np.rint(step / length)
+            # the rms step counts the corrected steps, not the raw jumps
+            st.sum_d2 += float(np.sum((step + inc) ** 2 - step**2))
+            # the columns that jump, and each jump's place among them (a mark per column
+            # costs less than sorting the jumps)
+            marked = np.zeros(flat.shape[1], dtype=bool)
+            marked[col] = True
+            cols = np.flatnonzero(marked)
+            which = (np.cumsum(marked) - 1)[col]
+            grow = np.zeros((b, cols.size))
+            grow[frame, which] = inc
+            np.cumsum(grow, axis=0, out=grow)
+            u.reshape(b, -1)[:, cols] += grow
+            self._off.reshape(-1)[cols] += grow[-1]
+        return u
 
     def _unwrap_fluctuating(self, x: np.ndarray, box: np.ndarray) -> np.ndarray:
         """Fluctuating box: wrap each frame into its own box, minimum image in the later."""
@@ -628,15 +650,47 @@ class _DumpInfo:
     velocities: bool
 
 
-def _dcd_partial_tail(p: Path, n_frames: int, n_atoms: int) -> int | None:
-    """Bytes after the last whole frame of a DCD file (0 if it ends cleanly); None when its
-    layout is not the plain one this check knows (no fixed atoms) or does not match the
-    reader's frame count.
+@dataclass(frozen=True)
+class _DCDLayout:
+    """Where the frames of a plain DCD file are: the header's size and one frame's records.
 
-    The layout (Fortran records: a control record of 20 integers, titles, the atom count,
-    then per frame an optional unit cell and the x, y, z records) is the CHARMM/NAMD/LAMMPS
-    DCD format as documented with those programs (from memory).
+    The layout (Fortran records, each framed by its byte count: a control record of 20
+    integers, titles, the atom count, then per frame an optional unit cell of 6 doubles and
+    the x, y, z records of float32) is the CHARMM/NAMD/LAMMPS DCD format as documented with
+    those programs (from memory). Files with fixed atoms or a fourth dimension are not
+    "plain" here.
     """
+
+    endian: str  # "<" or ">"
+    header: int  # bytes before the first frame
+    n_atoms: int
+    cell: bool  # each frame starts with a unit-cell record
+    istart: int  # step number of the first frame (control record)
+    nsavc: int  # steps between frames (control record)
+    size: int  # file size in bytes
+
+    @property
+    def frame_dtype(self) -> np.dtype:
+        """One frame as a structured record (markers, cell, coordinates)."""
+        e, n = self.endian, self.n_atoms
+        fields: list[tuple[str, str] | tuple[str, str, int]] = []
+        if self.cell:
+            fields += [("c0", e + "i4"), ("cell", e + "f8", 6), ("c1", e + "i4")]
+        for ax in "xyz":
+            fields += [(ax + "0", e + "i4"), (ax, e + "f4", n), (ax + "1", e + "i4")]
+        return np.dtype(fields)
+
+    @property
+    def frame_bytes(self) -> int:
+        return self.frame_dtype.itemsize
+
+    def whole_frames(self) -> tuple[int, int]:
+        """(whole frames in the file, bytes left after them)."""
+        return divmod(self.size - self.header, self.frame_bytes)
+
+
+def _dcd_layout(p: Path) -> _DCDLayout | None:
+    """The :class:`_DCDLayout` of a DCD file, or None if its header is not the plain one."""
     try:
         size = p.stat().st_size
         with open(p, "rb") as fh:
@@ -646,20 +700,147 @@ def _dcd_partial_tail(p: Path, n_frames: int, n_atoms: int) -> int | None:
                     or head[4:8] != b"CORD":
                 continue
             ic = struct.unpack(end + "20i", head[8:88])
-            pos = 92
-            n_title = struct.unpack(end + "i", head[pos: pos + 4])[0]
-            pos += 8 + n_title
-            natoms = struct.unpack(end + "3i", head[pos: pos + 12])[1]
-            pos += 12
-            if ic[8] != 0 or natoms != n_atoms:  # fixed atoms: the first frame differs
+            if struct.unpack(end + "i", head[88:92])[0] != 84:
                 return None
-            frame = 3 * (4 * natoms + 8) + (4 * natoms + 8 if ic[11] else 0)
-            frame += 56 if ic[10] and ic[19] else 0
-            whole, tail = divmod(size - pos, frame)
-            return tail if whole == n_frames else None
+            pos = 92
+            title_bytes = struct.unpack(end + "i", head[pos: pos + 4])[0]
+            if struct.unpack(end + "i", head[pos + 4 + title_bytes: pos + 8 + title_bytes]
+                             )[0] != title_bytes:
+                return None
+            pos += 8 + title_bytes
+            marker, natoms, after = struct.unpack(end + "3i", head[pos: pos + 12])
+            if marker != 4 or after != 4 or natoms < 1:
+                return None
+            pos += 12
+            if ic[8] != 0 or ic[11] != 0:  # fixed atoms (first frame differs) or 4-D
+                return None
+            return _DCDLayout(end, pos, natoms, bool(ic[10] and ic[19]), ic[1],
+                              ic[2] or 1, size)
     except (OSError, struct.error, IndexError):
         return None
     return None
+
+
+def _dcd_partial_tail(p: Path, n_frames: int, n_atoms: int) -> int | None:
+    """Bytes after the last whole frame of a DCD file (0 if it ends cleanly); None when its
+    layout is not the plain one (see :class:`_DCDLayout`) or does not match the reader's
+    frame and atom counts."""
+    lay = _dcd_layout(p)
+    if lay is None or lay.n_atoms != n_atoms:
+        return None
+    whole, tail = lay.whole_frames()
+    return tail if whole == n_frames else None
+
+
+def _dcd_dimensions(cells: np.ndarray) -> np.ndarray | None:
+    """MDAnalysis's box dimensions (B, 6) from raw DCD unit cells (B, 6), or None.
+
+    The raw record is ``[A, cos gamma, B, cos beta, cos alpha, C]`` (angles as cosines,
+    CHARMM and NAMD > 2.5) or with angles in degrees (NAMD 2.5); the box-matrix form of
+    newer CHARMM versions gives None (the caller then reads frame by frame). This follows
+    the conversion MDAnalysis applies to each frame it reads; the caller checks the result
+    against MDAnalysis's own frames.
+    """
+    uc = cells[:, [0, 2, 5, 4, 3, 1]].astype(np.float64)
+    ang = uc[:, 3:]
+    cosines = np.all((ang >= -1.0) & (ang <= 1.0), axis=1)
+    degrees = ~cosines & ~np.any((uc < 0.0) | np.c_[np.zeros((uc.shape[0], 3), bool),
+                                                     ang > 180.0], axis=1)
+    if not np.all(cosines | degrees):
+        return None
+    ang[cosines] = 90.0 - np.arcsin(ang[cosines]) * 90.0 / (np.pi / 2)
+    return uc
+
+
+class _DCDFrames:
+    """Reads blocks of frames of a plain DCD file straight into the reader's buffers.
+
+    MDAnalysis turns a DCD frame into its Timestep one at a time (~40 us per frame of
+    1,000 atoms, more than the file read); here a block of frames is one read and one
+    vectorised copy. Used only after :meth:`matches` has compared the first and last
+    frames (positions, box, time) with MDAnalysis's reader of the same file.
+    """
+
+    def __init__(self, path: Path, lay: _DCDLayout, n_frames: int,
+                 time_of: Any) -> None:
+        self.path = path
+        self.lay = lay
+        self.n_frames = n_frames
+        self.time_of = time_of  # frame index (array) -> time in the file's unit (ps)
+        self._dtype = lay.frame_dtype
+        self._fh = open(path, "rb")  # closed by close()
+        self._buf = bytearray()
+
+    def close(self) -> None:
+        self._fh.close()
+
+    def read(self, first: int, count: int) -> tuple[np.ndarray, np.ndarray | None]:
+        """Frames ``first .. first+count-1``: structured records and their box dimensions
+        (None without unit cells)."""
+        nbytes = count * self._dtype.itemsize
+        if len(self._buf) < nbytes:
+            self._buf = bytearray(nbytes)
+        self._fh.seek(self.lay.header + first * self._dtype.itemsize)
+        view = memoryview(self._buf)[:nbytes]
+        got = self._fh.readinto(view)
+        if got != nbytes:
+            raise InputError(
+                f"the DCD file ended while frame {first + got // self._dtype.itemsize} was "
+                "read (it changed while being read?)",
+                path=str(self.path), fix="read the file once the run has finished")
+        rec = np.frombuffer(self._buf, dtype=self._dtype, count=count)
+        n4 = 4 * self.lay.n_atoms
+        checks = [(ax + m, n4) for ax in "xyz" for m in "01"]
+        if self.lay.cell:
+            checks += [("c0", 48), ("c1", 48)]
+        for field, want in checks:
+            bad = rec[field] != want
+            if bad.any():
+                k = first + int(np.argmax(bad))
+                raise InputError(
+                    f"DCD frame {k} is damaged: a record length reads "
+                    f"{int(rec[field][k - first])}, expected {want} (byte "
+                    f"{self.lay.header + k * self._dtype.itemsize})",
+                    path=str(self.path), expected="the fixed frame layout of the header",
+                    fix="truncate the file before the damaged frame")
+        dims = None
+        if self.lay.cell:
+            cells = rec["cell"]
+            if np.all(cells == cells[0]):  # a constant box: convert one cell
+                dims = _dcd_dimensions(cells[:1])
+                dims = None if dims is None else np.repeat(dims, count, axis=0)
+            else:
+                dims = _dcd_dimensions(cells)
+            if dims is None:
+                raise InputError("DCD unit cells change form within the file",
+                                 path=str(self.path), fix="report this file")
+        return rec, dims
+
+    def positions_into(self, rec: np.ndarray, out: np.ndarray) -> None:
+        """Interleave the x, y, z records into `out` (B, n_atoms, 3) float32."""
+        for i, ax in enumerate("xyz"):
+            out[:, :, i] = rec[ax]
+
+    def matches(self, u: Any) -> bool:
+        """True if the first and last frames read here equal MDAnalysis's (positions
+        exactly, box to 1e-6 relative, times to 1e-9 relative)."""
+        if self.n_frames < 1:
+            return False
+        for i in sorted({0, self.n_frames - 1}):
+            ts = u.trajectory[i]
+            rec, dims = self.read(i, 1)
+            x = np.empty((1, self.lay.n_atoms, 3), dtype=np.float32)
+            self.positions_into(rec, x)
+            if not np.array_equal(x[0], ts.positions):
+                return False
+            theirs = ts.dimensions
+            if (theirs is None) != (dims is None):
+                return False
+            if dims is not None and not np.allclose(dims[0], theirs, rtol=1e-6, atol=1e-6):
+                return False
+            if not math.isclose(self.time_of(i), ts.time, rel_tol=1e-9, abs_tol=1e-12):
+                return False
+        return True
 
 
 def _dump_info(p: Path) -> _DumpInfo | None:
@@ -1213,6 +1394,28 @@ class _BlockBuffers:
         self.v: np.ndarray | None = None
 
 
+def _bulk_dcd(u: Any, p: Path) -> _DCDFrames | None:
+    """A :class:`_DCDFrames` for the DCD file loaded in `u`, or None (read frame by frame)
+    when the file is not a plain DCD or its first and last frames differ from MDAnalysis's.
+    """
+    if type(u.trajectory).__name__ != "DCDReader" or p.suffix.lower() != ".dcd":
+        return None
+    lay = _dcd_layout(p)
+    n = len(u.trajectory)
+    if lay is None or lay.n_atoms != u.atoms.n_atoms or lay.whole_frames()[0] != n:
+        return None
+    dt = float(u.trajectory.dt)
+    frames = _DCDFrames(p, lay, n, lambda i: (i + lay.istart / lay.nsavc) * dt)
+    try:
+        ok = frames.matches(u)
+    except InputError:
+        ok = False  # let MDAnalysis's reader meet (and report) the problem
+    if not ok:
+        frames.close()
+        return None
+    return frames
+
+
 class _NoBar:
     """Stands in for a progress bar when none is shown (spares importing tqdm)."""
 
@@ -1311,6 +1514,28 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
         cur["frame0"] += b
         bar.update(b)
 
+    def repeated(ts: Any, clock: _Clock) -> bool:
+        """True (and counted) if the first frame of a later part repeats the last one read."""
+        nonlocal duplicates
+        flush()
+        if frame_interval is not None:
+            same = np.array_equal(ts.positions, proc.last_raw)
+        else:
+            kind = clock.kind
+            t0 = (clock.offset + (ts.frame if kind == "dcd_step" else
+                                  ts.data.get("step", 0) if kind == "step"
+                                  else ts.time) * clock.scale) * clock.factor
+            same = coll.last_time is not None and math.isclose(
+                t0, coll.last_time, rel_tol=1e-9, abs_tol=1e-300)
+        if same:
+            duplicates += 1
+            coll.total -= 1
+            cur["frame0"] = 1
+            bar.update(1)
+        else:
+            proc.path = coll.path = str(cur["path"])
+        return same
+
     bar = _progress(progress, sum(lengths))
     with bar:
         for k, (p, dump) in enumerate(zip(paths, dumps, strict=True)):
@@ -1323,27 +1548,27 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
             kind = clock.kind
             with _warnings.catch_warnings():
                 _warnings.simplefilter("ignore")
+                bulk = None if bb.v is not None or bb.img is not None else _bulk_dcd(u, p)
+                if bulk is not None:
+                    with contextlib.closing(bulk):
+                        has_v = False if has_v is None else has_v
+                        n = bulk.n_frames
+                        start = 1 if k > 0 and repeated(u.trajectory[0], clock) else 0
+                        for a in range(start, n, block_size):
+                            b = min(block_size, n - a)
+                            rec, dims = bulk.read(a, b)
+                            bulk.positions_into(rec, bb.x[:b])
+                            if kind == "time":
+                                bb.t[:b] = bulk.time_of(a + np.arange(b))
+                            elif kind == "dcd_step":
+                                bb.t[:b] = a + np.arange(b)
+                            bb.box[:b] = np.nan if dims is None else dims
+                            fill = b
+                            flush()
+                    continue
                 for i, ts in enumerate(u.trajectory):
-                    if k > 0 and i == 0:
-                        # a restarted run repeats the last frame of the previous part
-                        flush()
-                        x0 = ts.positions
-                        if frame_interval is not None:
-                            same = np.array_equal(x0, proc.last_raw)
-                        else:
-                            t0 = (clock.offset + (ts.frame if kind == "dcd_step" else
-                                                  ts.data.get("step", 0) if kind == "step"
-                                                  else ts.time) * clock.scale
-                                  ) * clock.factor
-                            same = coll.last_time is not None and math.isclose(
-                                t0, coll.last_time, rel_tol=1e-9, abs_tol=1e-300)
-                        if same:
-                            duplicates += 1
-                            coll.total -= 1
-                            cur["frame0"] = 1
-                            bar.update(1)
-                            continue
-                        proc.path = coll.path = str(p)
+                    if k > 0 and i == 0 and repeated(ts, clock):
+                        continue
                     if has_v is None:
                         has_v = bool(want_velocities and ts.has_velocities)
                         if has_v:

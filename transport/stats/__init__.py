@@ -29,22 +29,59 @@ Conventions: series along the last axis; times in samples unless a ``dt`` is giv
 dataclass with ``value``, ``stderr`` and a 95% ``interval``.
 """
 
-from .autocorr import AutocorrelationTime, integrated_autocorrelation_time
-from .blocking import BlockingResult, block_average
-from .correlation import NORMALIZATIONS, Normalization, autocorrelation, cross_correlation
-from .equilibration import Equilibration, detect_equilibration
-from .mean import mean_with_error
-from .msd import msd, msd_per_particle
-from .replicas import (
-    BootstrapResult,
-    ReplicaResult,
-    bootstrap,
-    combine_replicas,
-    replica_mean,
-)
-from .streaming import StreamingCorrelator, streaming_autocorrelation
-from .synthetic import ar1, ornstein_uhlenbeck
-from .weighted import weighted_autocorrelation, weighted_msd
+from __future__ import annotations
+
+import importlib
+from typing import TYPE_CHECKING, Any
+
+#: Where each public name lives. The submodules are imported on first use, so that a
+#: command needing one of them (the FFT MSD, say) does not pay for scipy.stats.
+_WHERE = {
+    "AutocorrelationTime": "autocorr", "integrated_autocorrelation_time": "autocorr",
+    "BlockingResult": "blocking", "block_average": "blocking",
+    "NORMALIZATIONS": "correlation", "Normalization": "correlation",
+    "autocorrelation": "correlation", "cross_correlation": "correlation",
+    "Equilibration": "equilibration", "detect_equilibration": "equilibration",
+    "mean_with_error": "mean",
+    "msd": "msd", "msd_per_particle": "msd",
+    "BootstrapResult": "replicas", "ReplicaResult": "replicas", "bootstrap": "replicas",
+    "combine_replicas": "replicas", "replica_mean": "replicas",
+    "StreamingCorrelator": "streaming", "streaming_autocorrelation": "streaming",
+    "ar1": "synthetic", "ornstein_uhlenbeck": "synthetic",
+    "weighted_autocorrelation": "weighted", "weighted_msd": "weighted",
+}
+
+if TYPE_CHECKING:
+    from .autocorr import AutocorrelationTime, integrated_autocorrelation_time
+    from .blocking import BlockingResult, block_average
+    from .correlation import NORMALIZATIONS, Normalization, autocorrelation, cross_correlation
+    from .equilibration import Equilibration, detect_equilibration
+    from .mean import mean_with_error
+    from .msd import msd, msd_per_particle
+    from .replicas import (
+        BootstrapResult,
+        ReplicaResult,
+        bootstrap,
+        combine_replicas,
+        replica_mean,
+    )
+    from .streaming import StreamingCorrelator, streaming_autocorrelation
+    from .synthetic import ar1, ornstein_uhlenbeck
+    from .weighted import weighted_autocorrelation, weighted_msd
+
+
+def __getattr__(name: str) -> Any:
+    module = _WHERE.get(name)
+    if module is None:
+        raise AttributeError(f"module 'transport.stats' has no attribute {name!r}")
+    value = getattr(importlib.import_module(f".{module}", __name__), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(__all__))
+
 
 __all__ = [
     "NORMALIZATIONS",

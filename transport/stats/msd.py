@@ -29,6 +29,7 @@ import numpy as np
 import scipy.fft as sfft
 from numpy.typing import ArrayLike
 
+from .._parallel import available_cpus, thread_map
 from .correlation import _check_max_lag, _power_inplace
 
 __all__ = ["msd", "msd_per_particle"]
@@ -164,9 +165,13 @@ def msd(
 
     Parameters
     ----------
-    positions, max_lag, chunk_size, workers
+    positions, max_lag, chunk_size
         As in :func:`msd_per_particle` (the array may be float32 or a memmap; it is read
         one block of particles at a time and never copied whole).
+    workers : int, optional
+        Threads, each transforming its share of the particle blocks with a buffer of its
+        own (default: the CPUs available). The sums are added in a fixed order, so a
+        result depends on the thread count only at the level of rounding (~1e-16).
     particles : array_like of int, optional
         Indices of the particles to average over (default: all).
     shift : array_like, shape (n_frames, n_dims), optional
@@ -210,22 +215,35 @@ def msd(
             raise ValueError(f"`shift` must have shape ({n}, {n_dim}); got {sh.shape}")
         # its mean goes with each particle's mean: only its variation matters
         sh = np.ascontiguousarray((sh - sh.mean(axis=0)).T)
-    buf = np.zeros((min(size, idx.size), n_dim, length))  # zero tail = padding
-    sq = np.zeros(n)
-    power = np.zeros(2 * (length // 2 + 1))  # interleaved re^2, im^2 of the spectrum
-    for block in _particle_blocks(idx, size):
-        src = p[:, block, :]  # (frames, m, dims)
-        m = src.shape[1]
-        v = buf[:m, :, :n]
-        if sh is None:
-            v[...] = src.transpose(1, 2, 0)
-        else:
-            np.subtract(src.transpose(1, 2, 0), sh, out=v)
-        v -= v.mean(axis=-1, keepdims=True)
-        sq += np.einsum("mdt,mdt->t", v, v)
-        spec = sfft.rfft(buf[:m], axis=-1, workers=workers)
-        flat = spec.view(np.float64).reshape(m * n_dim, -1)
-        power += np.einsum("ij,ij->j", flat, flat)
+    blocks = _particle_blocks(idx, size)
+    n_threads = min(len(blocks), available_cpus() if workers is None else max(1, workers))
+
+    def sums(group: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Squared norms per frame and summed power spectrum of some particle blocks."""
+        buf = np.zeros((min(size, idx.size), n_dim, length))  # zero tail = padding
+        sq = np.zeros(n)
+        power = np.zeros(2 * (length // 2 + 1))  # interleaved re^2, im^2 of the spectrum
+        for j in group:
+            src = p[:, blocks[j], :]  # (frames, m, dims)
+            m = src.shape[1]
+            v = buf[:m, :, :n]
+            if sh is None:
+                v[...] = src.transpose(1, 2, 0)
+            else:
+                np.subtract(src.transpose(1, 2, 0), sh, out=v)
+            v -= v.mean(axis=-1, keepdims=True)
+            sq += np.einsum("mdt,mdt->t", v, v)
+            spec = sfft.rfft(buf[:m], axis=-1, workers=1)
+            flat = spec.view(np.float64).reshape(m * n_dim, -1)
+            power += np.einsum("ij,ij->j", flat, flat)
+        return sq, power
+
+    # contiguous groups of blocks, one per thread (numpy and scipy.fft release the GIL),
+    # summed in a fixed order
+    parts = thread_map(sums, np.array_split(np.arange(len(blocks)), n_threads),
+                       workers=n_threads)
+    sq = np.sum([a for a, _ in parts], axis=0)
+    power = np.sum([b for _, b in parts], axis=0)
     s2 = sfft.irfft(power[0::2] + power[1::2], n=length, workers=workers)[: k + 1]
     cum = np.concatenate([[0.0], np.cumsum(sq)])
     lags = np.arange(k + 1)
