@@ -230,6 +230,27 @@ def test_constant_box_unwrapping_schemes_agree():
     np.testing.assert_allclose(d.positions, u, atol=5e-6)
 
 
+def test_constant_box_unwrapping_is_the_sum_of_minimum_image_steps():
+    # Reference: the displacement scheme as written by von Bülow, Bullerjahn & Hummer (2020),
+    # u(t+1) = u(t) + d - L round(d / L) with d the raw step, summed here in float64 with
+    # numpy. The coordinates are wrapped, and some frames are shifted by whole boxes
+    # (+-1 to +-3 L, as files mixing wrapped and unwrapped frames have), so steps of
+    # several box lengths occur; the reader's offsets must follow them, whatever the blocks.
+    rng = np.random.default_rng(77)
+    L = np.array([9.0, 11.0, 13.0])
+    u = brownian_positions(600, 30, DT, 2.0, 10.0, rng, wrap=False)
+    w = u - L * np.floor(u / L)
+    w += L * rng.integers(-3, 4, size=(600, 30, 3)) * (rng.random((600, 30, 1)) < 0.05)
+    d = np.diff(w, axis=0)
+    ref = np.concatenate([w[:1], w[:1] + np.cumsum(d - L * np.rint(d / L), axis=0)])
+    np.testing.assert_allclose(ref, u - (u[0] - w[0]), atol=1e-9)  # the truth, shifted
+    for block in (1, 7, 256):
+        s = positions_from_arrays(w, L, DT, block_frames=block)
+        assert s.unwrap.startswith("displacement")
+        # float32 storage of values up to ~60: 4e-6 absolute
+        np.testing.assert_allclose(s.positions, ref, rtol=0, atol=1e-5)
+
+
 def _npt_trajectory(rng, n_frames, n_part, dt, diff, box0, rel_sd, tau_box):
     """Brownian particles in a box whose length fluctuates (OU in log L).
 

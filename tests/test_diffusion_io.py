@@ -21,6 +21,7 @@ from click.testing import CliRunner
 from transport.cli import main
 from transport.diffusion import analyse_diffusion, species_msd
 from transport.errors import InputError
+from transport.io import trajectory
 from transport.io.trajectory import load_trajectory
 from transport.synthetic import brownian_positions
 
@@ -34,10 +35,11 @@ def _quiet_mda():
     return warnings.catch_warnings()
 
 
-def _write_dcd(folder: Path, x: np.ndarray, box: float, dt_ps: float, *,
+def _write_dcd(folder: Path, x: np.ndarray, box, dt_ps: float, *,
                resnames=None, name: str = "traj.dcd", topology: str = "top.pdb",
                bonds=None) -> tuple[Path, Path]:
-    """Write a PDB topology and a DCD trajectory (Angstrom) with MDAnalysis."""
+    """Write a PDB topology and a DCD trajectory (Angstrom) with MDAnalysis; `box` is a
+    cubic box length, constant or one per frame."""
     n_frames, n, _ = x.shape
     resnames = list(resnames) if resnames is not None else ["LIQ"] * n
     with _quiet_mda():
@@ -50,7 +52,8 @@ def _write_dcd(folder: Path, x: np.ndarray, box: float, dt_ps: float, *,
         u.add_TopologyAttr("masses", np.full(n, 12.0))
         if bonds is not None:
             u.add_TopologyAttr("bonds", bonds)
-        dims = [box, box, box, 90.0, 90.0, 90.0]
+        boxes = np.broadcast_to(np.asarray(box, dtype=np.float64), (n_frames,))
+        dims = [boxes[0]] * 3 + [90.0, 90.0, 90.0]
         u.dimensions = dims
         u.atoms.positions = x[0]
         top = folder / topology
@@ -59,7 +62,7 @@ def _write_dcd(folder: Path, x: np.ndarray, box: float, dt_ps: float, *,
         with mda.Writer(str(traj), n, dt=dt_ps) as w:
             for k in range(n_frames):
                 u.atoms.positions = x[k]
-                u.dimensions = dims
+                u.dimensions = [boxes[k]] * 3 + [90.0, 90.0, 90.0]
                 w.write(u.atoms)
     return top, traj
 
@@ -222,6 +225,77 @@ def test_dcd_brownian_units_species_and_truth(tmp_path):
         assert abs(e.value - truth) < 4 * e.stderr, (e.group, e.value, e.stderr)
         assert e.diagnostics["box_lengths"] == pytest.approx([2.5] * 3, rel=1e-6)  # nm
     assert [e.group for e in res.msd] == ["OIL", "ADD"]
+
+
+def _frame_by_frame(monkeypatch):
+    """Make the reader take every frame from MDAnalysis's reader (no block reading)."""
+    monkeypatch.setattr(trajectory, "_bulk_dcd", lambda u, p: None)
+
+
+def _spy_blocks(monkeypatch) -> list:
+    """Record what the block-reader factory returns."""
+    made: list = []
+    real = trajectory._bulk_dcd
+
+    def spy(u, p):
+        made.append(real(u, p))
+        return made[-1]
+
+    monkeypatch.setattr(trajectory, "_bulk_dcd", spy)
+    return made
+
+
+def _assert_same_series(a, b):
+    np.testing.assert_array_equal(a.positions, b.positions)
+    np.testing.assert_array_equal(a.box, b.box)
+    np.testing.assert_array_equal(a.drift, b.drift)
+    assert (a.dt, a.t0, a.n_frames, a.unwrap) == (b.dt, b.t0, b.n_frames, b.unwrap)
+
+
+def test_dcd_blocks_equal_mdanalysis_frame_by_frame_with_a_fluctuating_box(
+        tmp_path, monkeypatch):
+    # Reference: MDAnalysis's DCD reader, one Timestep per frame (positions, the unit cell
+    # converted to box lengths, times). The box changes every frame, as at constant
+    # pressure, so every frame's cell is converted by the block reader.
+    rng = np.random.default_rng(24)
+    n_frames = 230  # several blocks and a partial last one
+    boxes = 20.0 * (1.0 + 0.01 * np.sin(np.arange(n_frames) / 7.0))
+    x = brownian_positions(n_frames, 40, 1.0, D_A2PS, 20.0, rng, wrap=False)
+    x -= boxes[:, None, None] * np.floor(x / boxes[:, None, None])
+    top, traj = _write_dcd(tmp_path, x, boxes, 1.0)
+    with monkeypatch.context() as m:
+        made = _spy_blocks(m)
+        blocks = load_trajectory(top, traj, timestep=0.5)[0]
+        times = load_trajectory(top, traj)[0]  # times stored in the file
+    assert len(made) == 2 and all(isinstance(f, trajectory._DCDFrames) for f in made)
+    with monkeypatch.context() as m:
+        _frame_by_frame(m)
+        ref = load_trajectory(top, traj, timestep=0.5)[0]
+        ref_times = load_trajectory(top, traj)[0]
+    _assert_same_series(blocks, ref)
+    _assert_same_series(times, ref_times)
+    assert blocks.unwrap.startswith("displacement")
+    np.testing.assert_allclose(blocks.box[:, 0], boxes * 1e-10, rtol=1e-6)  # float32 cell
+
+
+def test_a_damaged_dcd_frame_is_named(tmp_path):
+    # The frame layout of the CHARMM/LAMMPS DCD format (from memory): a unit-cell record
+    # (4 + 48 + 4 bytes) and the x, y, z records (4 + 4N + 4 bytes each) per frame, after a
+    # header. A zeroed record length in frame 40 is a damaged file, named as such.
+    rng = np.random.default_rng(25)
+    n_frames, n = 100, 20
+    x = brownian_positions(n_frames, n, 2.0, D_A2PS, 25.0, rng)
+    top, traj = _write_dcd(tmp_path, x, 25.0, 2.0)
+    data = bytearray(traj.read_bytes())
+    frame = 56 + 3 * (4 * n + 8)
+    header = len(data) - n_frames * frame
+    at = header + 40 * frame + 56 + (4 * n + 8)  # frame 40, the y record's length
+    data[at:at + 4] = b"\0\0\0\0"
+    bad = tmp_path / "bad.dcd"
+    bad.write_bytes(bytes(data))
+    with pytest.raises(InputError, match="DCD frame 40 is damaged") as err:
+        load_trajectory(top, bad)
+    assert str(bad) in str(err.value) and f"byte {header + 40 * frame}" in str(err.value)
 
 
 def test_memory_limit_spills_to_scratch_file_with_same_result(tmp_path):

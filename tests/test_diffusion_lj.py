@@ -101,3 +101,18 @@ def test_a_dcd_cut_inside_its_last_frame_is_read_with_a_warning(tmp_path, dcd_se
                for w in s.warnings)
     assert not any("into a frame" in w for w in dcd_series.warnings)  # the complete file
     np.testing.assert_array_equal(s.positions, dcd_series.positions[:400])
+
+
+def test_dcd_blocks_equal_mdanalysis_frame_by_frame(dcd_series, monkeypatch):
+    """The engine's own DCD, read a block of frames at a time (the fixture) and through
+    MDAnalysis's reader one Timestep per frame (the reference): the same series."""
+    from transport.io import trajectory
+
+    lay = trajectory._dcd_layout(DCD)
+    assert lay is not None and lay.cell and lay.n_atoms == 1372  # the plain layout
+    monkeypatch.setattr(trajectory, "_bulk_dcd", lambda u, p: None)
+    ref = load_trajectory(TOPOLOGY, DCD, units="lj", timestep=0.005)[0]
+    np.testing.assert_array_equal(dcd_series.positions, ref.positions)
+    np.testing.assert_array_equal(dcd_series.box, ref.box)
+    np.testing.assert_array_equal(dcd_series.drift, ref.drift)
+    assert (dcd_series.dt, dcd_series.t0) == (ref.dt, ref.t0)

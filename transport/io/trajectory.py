@@ -749,7 +749,9 @@ def _dcd_dimensions(cells: np.ndarray) -> np.ndarray | None:
     if not np.all(cosines | degrees):
         return None
     ang[cosines] = 90.0 - np.arcsin(ang[cosines]) * 90.0 / (np.pi / 2)
-    return uc
+    # MDAnalysis keeps dimensions in float32: rounded the same way, the series does not
+    # depend on which reader took the frames
+    return uc.astype(np.float32).astype(np.float64)
 
 
 class _DCDFrames:
