@@ -165,7 +165,7 @@ class _Store:
                 # is left behind whatever happens next
                 Path(name).unlink(missing_ok=True)
         else:
-            self.array = bulk_empty((n_frames, n_part, 3), np.float32)  # no huge pages
+            self.array = bulk_empty((n_frames, n_part, 3), np.float32, populate=True)
 
     def finish(self, n_used: int) -> np.ndarray:
         a = self.array[:n_used]
@@ -347,12 +347,15 @@ class _FrameProcessor:
             inc = -length * np.rint(step / length)
             # the rms step counts the corrected steps, not the raw jumps
             st.sum_d2 += float(np.sum((step + inc) ** 2 - step**2))
-            # the columns that jump, and each jump's place among them (a mark per column
-            # costs less than sorting the jumps)
-            marked = np.zeros(flat.shape[1], dtype=bool)
-            marked[col] = True
-            cols = np.flatnonzero(marked)
-            which = (np.cumsum(marked) - 1)[col]
+            # the columns that jump, and each jump's place among them: a mark per column
+            # costs less than sorting the jumps when they are many for the columns
+            if 8 * jumps.size >= flat.shape[1]:
+                marked = np.zeros(flat.shape[1], dtype=np.intp)
+                marked[col] = 1
+                cols = np.flatnonzero(marked)
+                which = (np.cumsum(marked) - 1)[col]
+            else:
+                cols, which = np.unique(col, return_inverse=True)
             grow = np.zeros((b, cols.size))
             grow[frame, which] = inc
             np.cumsum(grow, axis=0, out=grow)
