@@ -25,8 +25,10 @@ MSD); ``process`` is the whole child from start to exit, imports included (for t
 line that includes importing the ``transport`` package, as its console script does; the
 command runs through ``transport.cli.main``). Peak memory is the child's high-water resident
 set (``VmHWM``), with the growth after the imports beside it (``+work``). Best of the
-repeats and the median of ``work`` (the machine is shared: the load average is printed
-before and after).
+repeats and the median of ``work``; the ratio to ``mda-read`` is given for the best times
+and as the median of the per-round ratios (work for ``lib``; process for ``cli``, whose
+work includes importing MDAnalysis). The machine is shared: the load average is printed
+before and after.
 
 Usage::
 
@@ -234,8 +236,15 @@ def bench_size(n_atoms: int, n_frames: int, repeat: int, direct_frames: int) -> 
             med = statistics.median(r["work"] for r in rs)
             peak = max(r["peak_kib"] for r in rs) / 1024
             extra = max(r["peak_kib"] - r["peak_imported_kib"] for r in rs) / 1024
+            # the rounds ran side by side: the median of the per-round ratios is steadier
+            # than the ratio of the best times on a shared machine
+            paired = statistics.median(
+                r[key] / b[key] for r, b in zip(rs, runs["mda-read"], strict=True)
+                for key in ("work" if kind == "lib" else "process",))
             ratio = ("baseline" if kind == "mda-read" else
-                     f"work {work / base_work:.2f}x, process {proc / base_proc:.2f}x")
+                     f"work {work / base_work:.2f}x, process {proc / base_proc:.2f}x; "
+                     f"median per round ({'work' if kind == 'lib' else 'process'}) "
+                     f"{paired:.2f}x")
             lines.append(f"{fmt:6} {kind:10} {work:8.3f} {med:8.3f} {proc:10.3f} "
                          f"{peak:9.0f} {extra:10.0f}  {ratio}")
         e = best["lib"]

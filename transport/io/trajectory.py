@@ -78,6 +78,7 @@ import numpy as np
 from numpy.typing import ArrayLike
 
 from .._memory import bulk_empty
+from .._parallel import available_cpus, lane_map
 from ..errors import InputError
 from ..series import PositionSeries, Source
 from ..units import UnitSystem, get_unit_system
@@ -104,6 +105,8 @@ MAX_STEP_FRACTION = 1.0 / 12.0
 #: Relative change of a box length that counts as a fluctuating box (float32 boxes carry
 #: ~1e-7 relative rounding).
 _BOX_RTOL = 1e-5
+#: Coordinates per block above which the constant-box unwrapping is split into lanes.
+_LANE_VALUES = 1 << 16
 _ANGSTROM = 1e-10
 _PS = 1e-12
 _AMU = 1.66053906660e-27  # kg, CODATA 2018 atomic mass constant (= scipy.constants.atomic_mass)
@@ -313,44 +316,71 @@ class _FrameProcessor:
         change only where a step is longer than half a box (a few per cent of the steps of
         wrapped coordinates), so the dense work is one difference, one comparison and one
         addition per coordinate; the offsets are whole multiples of L, so ``u`` is exact.
+        Coordinates are independent, so big blocks are split into lanes of atoms worked on
+        in threads (numpy releases the GIL); the result does not depend on the lanes.
         """
         st = self.stats
         if box is None:
             return x if self.mode != "displacement" else x.copy()
         b = x.shape[0]
         d, u, mask = self._work(x.shape, x.dtype)
+        disp = self.mode == "displacement"
+        if disp and self._off is None:
+            self._off = self._u - self._x
+        flat = [a.reshape(b, -1) for a in (x, d, u, mask)]
+        prev, half = self._x.reshape(-1), self._half_tile.reshape(-1)
+        off = self._off.reshape(-1) if disp and self._off is not None else None
+        ncols = flat[0].shape[1]
+        n_lanes = min(available_cpus(), max(1, (b * ncols) // _LANE_VALUES))
+        edges = [3 * ((ncols // 3) * i // n_lanes) for i in range(n_lanes + 1)]
+
+        def lane(k: int) -> tuple[float, int]:
+            sl = slice(edges[k], edges[k + 1])
+            return self._constant_lane(*(a[:, sl] for a in flat), prev[sl], half[sl],
+                                       None if off is None else off[sl], sl.start)
+
+        for sum_d2, jumps in lane_map(lane, range(n_lanes)):
+            st.sum_d2 += sum_d2
+            st.raw_jumps += jumps
+        if not disp:
+            return x
+        st.n_d += d.size
+        return u
+
+    def _constant_lane(self, x: np.ndarray, d: np.ndarray, u: np.ndarray, mask: np.ndarray,
+                       prev: np.ndarray, half: np.ndarray, off: np.ndarray | None,
+                       start: int) -> tuple[float, int]:
+        """One lane of :meth:`_unwrap_constant`: 2-D views (frames, coordinates) of the block,
+        the work arrays, the previous frame, half the box and the offsets (None: only count
+        the jumps) of coordinates ``start ...``. Returns (sum of squared steps, raw jumps)."""
+        b = x.shape[0]
         # raw steps in the coordinates' own precision: only compared with half a box here;
         # the steps that matter are recomputed in float64 below
         np.subtract(x[1:], x[:-1], out=d[1:])
-        np.subtract(x[0], self._x, out=d[0])
-        if self.mode == "displacement":
-            # einsum, not a BLAS dot: multithreaded BLAS level-1 calls stall on a busy machine
-            st.sum_d2 += float(np.einsum("bij,bij->", d, d))
-            st.n_d += d.size
+        np.subtract(x[0], prev, out=d[0])
+        # einsum, not a BLAS dot: multithreaded BLAS level-1 calls stall on a busy machine
+        sum_d2 = float(np.einsum("ij,ij->", d, d)) if off is not None else 0.0
         np.abs(d, out=d)
-        jumps = np.flatnonzero(np.greater(d, self._half_tile, out=mask))
-        st.raw_jumps += int(jumps.size)
-        if self.mode != "displacement":
-            return x
-        if self._off is None:
-            self._off = self._u - self._x
-        np.add(x, self._off, out=u)
+        jumps = np.flatnonzero(np.greater(d, half, out=mask))
+        if off is None:
+            return sum_d2, int(jumps.size)
+        np.add(x, off, out=u)
         if jumps.size:
-            flat = x.reshape(b, -1)
-            frame, col = np.divmod(jumps, flat.shape[1])
-            prev = np.empty(jumps.size)
+            m = x.shape[1]
+            frame, col = np.divmod(jumps, m)
+            before = np.empty(jumps.size)
             first = frame == 0
-            prev[first] = self._x.reshape(-1)[col[first]]
-            prev[~first] = flat[frame[~first] - 1, col[~first]]
-            step = flat[frame, col] - prev
-            length = self._box0[col % 3]
+            before[first] = prev[col[first]]
+            before[~first] = x[frame[~first] - 1, col[~first]]
+            step = x[frame, col] - before
+            length = self._box0[(start + col) % 3]
             inc = -length * np.rint(step / length)
             # the rms step counts the corrected steps, not the raw jumps
-            st.sum_d2 += float(np.sum((step + inc) ** 2 - step**2))
+            sum_d2 += float(np.sum((step + inc) ** 2 - step**2))
             # the columns that jump, and each jump's place among them: a mark per column
             # costs less than sorting the jumps when they are many for the columns
-            if 8 * jumps.size >= flat.shape[1]:
-                marked = np.zeros(flat.shape[1], dtype=np.intp)
+            if 8 * jumps.size >= m:
+                marked = np.zeros(m, dtype=np.intp)
                 marked[col] = 1
                 cols = np.flatnonzero(marked)
                 which = (np.cumsum(marked) - 1)[col]
@@ -359,9 +389,9 @@ class _FrameProcessor:
             grow = np.zeros((b, cols.size))
             grow[frame, which] = inc
             np.cumsum(grow, axis=0, out=grow)
-            u.reshape(b, -1)[:, cols] += grow
-            self._off.reshape(-1)[cols] += grow[-1]
-        return u
+            u[:, cols] += grow
+            off[cols] += grow[-1]
+        return sum_d2, int(jumps.size)
 
     def _unwrap_fluctuating(self, x: np.ndarray, box: np.ndarray) -> np.ndarray:
         """Fluctuating box: wrap each frame into its own box, minimum image in the later."""
