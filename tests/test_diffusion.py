@@ -137,16 +137,43 @@ def test_interval_covers_95_percent_when_the_error_bar_is_large():
     hits, sym, rel = [], [], []
     for m in per:
         fit = fit_msd(m, dt, (1, 15), frames=[n_frames], counts=[1.0])
-        (lo, hi), rule = msd_interval(fit.diffusion, fit.stderr)
+        # the interval rule on the model standard error (the Birge scaling of misfitting
+        # fits is tested separately)
+        se = fit.stderr / fit.scale_factor
+        (lo, hi), rule = msd_interval(fit.diffusion, se)
         if not rule.startswith("normal"):
             continue  # z c >= 1/2: the symmetric fallback (rare here)
         hits.append(lo <= d_true <= hi)
-        sym.append(abs(fit.diffusion - d_true) <= 1.959964 * fit.stderr)
-        rel.append(fit.stderr / fit.diffusion)
+        sym.append(abs(fit.diffusion - d_true) <= 1.959964 * se)
+        rel.append(se / fit.diffusion)
     assert len(hits) > 0.97 * walks
     assert 0.15 < np.median(rel) < 0.25  # the regime this test is about
     assert 0.936 <= np.mean(hits) <= 0.964, np.mean(hits)
     assert np.mean(hits) - np.mean(sym) > 0.007, (np.mean(hits), np.mean(sym))
+
+
+def test_error_bar_is_scaled_when_particles_move_together():
+    # Each walk is written twice: the MSD average is that of N independent walks, but the
+    # model covariance assumes 2N, so its variance is too small by a factor of 2 and the
+    # chi-square comes out near 2 dof. The Birge ratio sqrt(chi^2/dof) (Birge 1932) then
+    # brings the standard error back to that of the N independent walks (analytic:
+    # stderr ~ 1/sqrt(N)). Tolerance: sqrt(chi^2/dof) with ~150 dof has a relative sd of
+    # ~6%; 20% is > 3 sd.
+    rng = np.random.default_rng(2024)
+    n_frames, n, d_true, dt = 1200, 100, 0.5, 1.0
+    x = np.cumsum(rng.standard_normal((n_frames, n, 3)) * np.sqrt(2 * d_true * dt), axis=0)
+    m_single = msd(x, max_lag=300)
+    m_twice = msd(np.concatenate([x, x], axis=1), max_lag=300)
+    np.testing.assert_allclose(m_twice, m_single, rtol=1e-10)  # the same MSD
+    single = fit_msd(m_single, dt, (1, 300), frames=[n_frames], counts=[float(n)])
+    twice = fit_msd(m_twice, dt, (1, 300), frames=[n_frames], counts=[2.0 * n])
+    assert single.scale_factor == 1.0 or single.chi2 / single.dof < 1.3
+    assert twice.scale_factor > 1.2  # chi^2 / dof ~ 2: rejected, scaled
+    assert twice.scale_factor == pytest.approx(np.sqrt(twice.chi2 / twice.dof))
+    assert twice.stderr == pytest.approx(single.stderr, rel=0.2)
+    # without the scaling the error bar would be 1/sqrt(2) of the right one
+    assert twice.stderr / twice.scale_factor == pytest.approx(single.stderr / np.sqrt(2),
+                                                              rel=0.2)
 
 
 def test_interval_is_the_inverted_normal_interval():
@@ -330,8 +357,9 @@ def test_drift_is_removed_and_recorded():
     # without removal the drift's v^2 t^2 bends the MSD up: a larger slope, and a fit the
     # random-walk covariance rejects (chi-square warning)
     assert off.value > on.value + 3 * on.stderr
-    assert any("scatters more than" in w for w in off.warnings)
-    assert not any("scatters more than" in w for w in on.warnings)
+    assert any("scatters much more than" in w for w in off.warnings)
+    assert off.diagnostics["stderr_scale_factor"] > 1  # and its error bar was scaled
+    assert not any("scatters much more than" in w for w in on.warnings)
 
 
 def test_species_and_replicas():

@@ -26,10 +26,16 @@ the sum running over the origins of both lags and ``overlap`` the number of step
 displacement windows share (Isserlis' theorem: Cov[A^2, B^2] = 2 Cov[A, B]^2 for zero-mean
 Gaussians). Its shape does not depend on D, so the GLS estimate needs no iteration; its
 scale ``s^2 = 2 D dt`` is evaluated at the fitted D. The fit's chi-square against this model
-is reported: a p-value far below 0.01 says the model covariance is too small for these data
-(correlated particles, non-Gaussian displacements) and a warning is attached. Estimating the
-covariance from particles instead would need many more particles than fit points and ignores
-the correlation between particles just the same.
+is reported. When it rejects the model at the 5% level (the MSD scatters more than the
+random-walk covariance allows: particles that move together, non-Gaussian displacements, a
+window not yet quite linear), the standard error is multiplied by the Birge ratio
+``S = sqrt(chi^2 / dof)`` [6]_, the scale factor the Particle Data Group applies to
+inconsistent data [7]_; the factor is recorded. (Applied only on rejection: scaling every fit
+by ``max(1, S)`` would widen correct error bars by several per cent on average for short
+windows and over-cover; the test at 5% leaves correct fits alone 95% of the time.) A p-value
+far below 0.01 also attaches a warning. Estimating the covariance from particles instead
+would need many more particles than fit points and ignores the correlation between particles
+just the same.
 
 The 95% interval (:func:`msd_interval`) uses the normal quantile, not Student's t: no scale is
 estimated from the fit residuals (the covariance is a model whose scale is fixed by D), so the
@@ -71,6 +77,10 @@ References
    time-averaged MSD of a random walk.
 .. [5] M. P. Allen and D. J. Tildesley, *Computer Simulation of Liquids*, 2nd ed. (Oxford,
    2017), Sec. 8.3 (MSD and VACF by FFT) and Sec. 2.7 (Einstein and Green–Kubo forms of D).
+.. [6] R. T. Birge, "The calculation of errors by the method of least squares", Phys. Rev.
+   40, 207 (1932).
+.. [7] Particle Data Group, "Review of Particle Physics", Introduction, section on averaging
+   measurements: the scale factor S (from memory).
 """
 
 from __future__ import annotations
@@ -115,6 +125,8 @@ WINDOW_SPAN = 3.0
 ORIGINS_PER_LAG = 3.0
 #: Most MSD points entering the GLS fit (log- and linearly spaced in the window).
 MAX_FIT_POINTS = 120
+#: The GLS standard error is scaled by sqrt(chi^2/dof) when the chi-square p-value is below this.
+CHI2_SCALE_P = 0.05
 #: VACF: normalised level below which the VACF counts as decayed.
 VACF_LEVEL = 0.01
 #: VACF: smallest normalised VACF one frame after the origin for a trustworthy integral.
@@ -340,7 +352,8 @@ class MSDFit:
     Attributes
     ----------
     diffusion, stderr : float
-        GLS estimate of D and its standard error (model covariance at the fitted D).
+        GLS estimate of D and its standard error (model covariance at the fitted D, times
+        `scale_factor`).
     intercept, intercept_stderr : float
         b and its standard error (length^2).
     ols_diffusion, ols_stderr, ols_stderr_naive : float
@@ -350,6 +363,10 @@ class MSDFit:
         Chi-square of the GLS residuals against the model covariance.
     dof : int
         Fit points minus 2.
+    scale_factor : float
+        What `stderr`, `intercept_stderr` and `cov_params` were multiplied by:
+        ``sqrt(chi2 / dof)`` when the chi-square rejects the model covariance at the
+        :data:`CHI2_SCALE_P` level (Birge ratio), else 1.
     lags : ndarray
         The lags (frames) used.
     cov_params : ndarray, shape (2, 2)
@@ -367,6 +384,7 @@ class MSDFit:
     dof: int
     lags: np.ndarray
     cov_params: np.ndarray
+    scale_factor: float = 1.0
 
     @property
     def chi2_pvalue(self) -> float:
@@ -432,6 +450,10 @@ def fit_msd(
     r_ols = y - x @ b_ols
     dof = lags.size - 2
     naive = float(np.sqrt(max(r_ols @ r_ols / max(dof, 1), 0.0) * xtx_inv[0, 0]))
+    factor = 1.0
+    if dof > 0 and np.isfinite(chi2) and special.chdtrc(dof, chi2) < CHI2_SCALE_P:
+        factor = math.sqrt(chi2 / dof)  # > 1 here: the Birge ratio
+        cov_b = cov_b * factor**2
     return MSDFit(
         diffusion=diff,
         stderr=float(np.sqrt(cov_b[0, 0])) / (2 * _DIM),
@@ -444,6 +466,7 @@ def fit_msd(
         dof=dof,
         lags=lags,
         cov_params=cov_b,
+        scale_factor=factor,
     )
 
 
@@ -958,9 +981,15 @@ def _msd_result(fit: MSDFit, mean: np.ndarray, time: np.ndarray, dt: float, name
     warn = list(warn)
     if np.isfinite(p) and p < 1e-3:
         warn.append(
-            f"{name}: the MSD scatters more than the random-walk covariance allows "
+            f"{name}: the MSD scatters much more than the random-walk covariance allows "
             f"(chi^2 = {fit.chi2:.3g} for {fit.dof} degrees of freedom, p = {p:.2g}); the "
-            "error bar may be too small (correlated particles or a non-diffusive window)")
+            f"error bar was scaled by sqrt(chi^2/dof) = {fit.scale_factor:.3g}, but the "
+            "model may not hold (correlated particles or a non-diffusive window)")
+    elif fit.scale_factor > 1:
+        warn.append(
+            f"{name}: error bar scaled by sqrt(chi^2/dof) = {fit.scale_factor:.3g}: the MSD "
+            f"scatters more than the random-walk covariance allows (chi^2 = {fit.chi2:.3g} "
+            f"for {fit.dof} degrees of freedom, p = {p:.2g})")
     if value <= 0:
         warn.append(f"{name}: the fitted slope is not positive")
     (lo, hi), interval_rule = msd_interval(value, se)
@@ -985,7 +1014,11 @@ def _msd_result(fit: MSDFit, mean: np.ndarray, time: np.ndarray, dt: float, name
         chi2_pvalue=p,
         covariance_model="analytic random-walk covariance of the MSD points (Bullerjahn, "
                          "von Bülow & Hummer 2020), independent particles",
-        stderr_method="generalized least squares with the model covariance at the fitted D",
+        stderr_scale_factor=fit.scale_factor,
+        stderr_method=(
+            "generalized least squares with the model covariance at the fitted D" + (
+                f", scaled by the Birge ratio sqrt(chi^2/dof) = {fit.scale_factor:.3g} "
+                f"(chi^2 p-value below {CHI2_SCALE_P:g})" if fit.scale_factor > 1 else "")),
         interval_method=interval_rule,
     )
     return Estimate(
