@@ -35,8 +35,14 @@ than half a box are corrected.
 Memory and speed: the frames are copied, one copy per frame, into a block of about 2^17
 coordinates (float32, as MDAnalysis gives them), and each block is unwrapped in float64 with
 reused work arrays (fresh block-sized arrays would be page-faulted in every time), reduced to
-particles and scaled to internal units on its way into the store. Positions (and velocities)
-are stored as float32, in memory or, when they would exceed `memory_limit`, in a scratch
+particles and scaled to internal units on its way into the store; for a constant box the
+block is split into lanes of atoms worked on in threads. Plain DCD files (the CHARMM, NAMD
+and LAMMPS layout of fixed-size frame records) are read a whole block of frames at a time
+straight from the file (:class:`_DCDFrames`), which is several times faster than
+MDAnalysis's frame-by-frame Timesteps; this is used only after the first and last frames
+read that way have been compared with MDAnalysis's reader of the same file (positions
+exactly, box, time), and every record length is checked. Positions (and velocities) are
+stored as float32, in memory or, when they would exceed `memory_limit`, in a scratch
 :class:`numpy.memmap` file that is deleted when no longer referenced.
 
 Inputs are only read: MDAnalysis's XTC and TRR readers would write an offsets cache and a
