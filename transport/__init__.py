@@ -21,8 +21,9 @@ line start quickly; ``from transport import green_kubo`` works as usual.
 
 from __future__ import annotations
 
-import importlib
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING
+
+from ._lazy import lazy_names
 
 __version__ = "0.1.0"
 
@@ -78,17 +79,7 @@ __all__ = [
 ]
 
 
-def __getattr__(name: str) -> Any:
-    module = _WHERE.get(name)
-    if module is None:
-        raise AttributeError(f"module 'transport' has no attribute {name!r}")
-    value = getattr(importlib.import_module(f".{module}", __name__), name)
-    globals()[name] = value
-    return value
-
-
-def __dir__() -> list[str]:
-    return sorted(set(globals()) | set(__all__))
+__getattr__, __dir__ = lazy_names(__name__, globals(), _WHERE, __all__)
 
 
 if TYPE_CHECKING:  # pragma: no cover - for type checkers and editors

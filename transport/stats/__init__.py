@@ -31,8 +31,9 @@ dataclass with ``value``, ``stderr`` and a 95% ``interval``.
 
 from __future__ import annotations
 
-import importlib
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING
+
+from .._lazy import lazy_names
 
 #: Where each public name lives. The submodules are imported on first use, so that a
 #: command needing one of them (the FFT MSD, say) does not pay for scipy.stats.
@@ -70,17 +71,6 @@ if TYPE_CHECKING:
     from .weighted import weighted_autocorrelation, weighted_msd
 
 
-def __getattr__(name: str) -> Any:
-    module = _WHERE.get(name)
-    if module is None:
-        raise AttributeError(f"module 'transport.stats' has no attribute {name!r}")
-    value = getattr(importlib.import_module(f".{module}", __name__), name)
-    globals()[name] = value
-    return value
-
-
-def __dir__() -> list[str]:
-    return sorted(set(globals()) | set(__all__))
 
 
 __all__ = [
@@ -109,3 +99,5 @@ __all__ = [
     "weighted_autocorrelation",
     "weighted_msd",
 ]
+
+__getattr__, __dir__ = lazy_names(__name__, globals(), _WHERE, __all__)
