@@ -527,6 +527,12 @@ def _bad_runs(tmp_path: Path) -> dict[str, list[str]]:
     # frames far apart: rms step 25 A / 4 per coordinate
     far = brownian_positions(50, 20, 1.0, (25.0 / 4) ** 2 / 2, 25.0, rng)
     _, far_traj = _write_dcd(tmp_path, far, 25.0, 1.0, name="far.dcd", topology="far.pdb")
+    damaged = tmp_path / "damaged.dcd"
+    data = bytearray(traj.read_bytes())
+    frame = 56 + 3 * (4 * 20 + 8)  # cell record and x, y, z records (DCD layout, from memory)
+    at = len(data) - 50 * frame + 56  # frame 50's x record length
+    data[at:at + 4] = b"\xff\xff\xff\xff"
+    damaged.write_bytes(bytes(data))
     return {
         "missing topology": [str(tmp_path / "nope.pdb"), str(traj)],
         "missing trajectory": [str(top), str(tmp_path / "nope.dcd")],
@@ -536,13 +542,14 @@ def _bad_runs(tmp_path: Path) -> dict[str, list[str]]:
         "empty selection": [str(top), str(traj), "--select", "name XYZ"],
         "blank selection": [str(top), str(traj), "--select", "  "],
         "molecules without bonds": [str(top), str(traj), "--group-by", "molecule"],
+        "damaged DCD frame": [str(top), str(damaged)],
     }
 
 
 @pytest.mark.parametrize("case", ["missing topology", "missing trajectory",
                                   "unreadable topology", "mismatched atom counts",
                                   "frames too far apart", "empty selection", "blank selection",
-                                  "molecules without bonds"])
+                                  "molecules without bonds", "damaged DCD frame"])
 def test_cli_bad_input_exit_2_one_line_nothing_written(tmp_path, case):
     args = _bad_runs(tmp_path)[case]
     before = _files(tmp_path)
@@ -560,7 +567,8 @@ def test_cli_bad_input_exit_2_one_line_nothing_written(tmp_path, case):
               "mismatched atom counts": "atoms", "frames too far apart": "too far apart",
               "empty selection": "matches no atoms",
               "blank selection": "--select is empty",
-              "molecules without bonds": "needs bonds"}[case]
+              "molecules without bonds": "needs bonds",
+              "damaged DCD frame": "DCD frame 50 is damaged"}[case]
     assert expect in lines[0]
 
 
