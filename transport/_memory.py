@@ -6,10 +6,11 @@ kernel has free 2 MB blocks, writing a fresh array that way is fast (one fault p
 memory is fragmented, typically after reading big files filled the page cache) every fault
 first compacts memory: a fresh 640 MB array then took 1.9 s to write, against 0.45 s with
 ordinary 4 kB pages (``DEVELOPERS.md``, performance notes). So :func:`bulk_empty` looks at
-the kernel's free-block counts (``/proc/buddyinfo``, Linux) and uses numpy's allocation when
-free 2 MB blocks cover the array twice over, and an anonymous map without huge pages
-otherwise; such a map can also be filled by the kernel at once (``populate``), which spares
-a trap per 4 kB page (120 MB: 0.06 s instead of 0.1 s).
+the kernel's free-block counts (``/proc/buddyinfo``, Linux) and, where the caller allows it
+(``huge_pages=True``), uses numpy's allocation when free 2 MB blocks cover the array twice
+over, and an anonymous map without huge pages otherwise; such a map can also be filled
+by the kernel at once (``populate``), which spares a trap per 4 kB page (120 MB: 0.06 s
+instead of 0.1 s).
 """
 
 from __future__ import annotations
@@ -54,7 +55,7 @@ def free_huge_bytes() -> int | None:
 
 
 def bulk_empty(shape: int | tuple[int, ...], dtype: DTypeLike = np.float64, *,
-               populate: bool = False) -> np.ndarray:
+               populate: bool = False, huge_pages: bool = False) -> np.ndarray:
     """An uninitialised (in fact zero-filled on first touch) C-ordered array.
 
     Parameters
@@ -66,6 +67,10 @@ def bulk_empty(shape: int | tuple[int, ...], dtype: DTypeLike = np.float64, *,
     populate : bool
         The whole array will be written: where it is mapped without huge pages, have the
         kernel fill it in at once (``MAP_POPULATE``) rather than page by page.
+    huge_pages : bool
+        Use numpy's (huge-page) allocation when the kernel has free 2 MB blocks for twice
+        the array. Off by default: the log reader's store was measured (viscosity
+        benchmark, 1.5 GB inputs filling the page cache) only without huge pages.
 
     Returns
     -------
@@ -78,9 +83,10 @@ def bulk_empty(shape: int | tuple[int, ...], dtype: DTypeLike = np.float64, *,
     nbytes = int(np.prod(shape_t, dtype=np.int64)) * dt.itemsize
     if nbytes < _SMALL:
         return np.empty(shape_t, dtype=dt)
-    free = free_huge_bytes()
-    if free is not None and free >= 2 * nbytes:
-        return np.empty(shape_t, dtype=dt)
+    if huge_pages:
+        free = free_huge_bytes()
+        if free is not None and free >= 2 * nbytes:
+            return np.empty(shape_t, dtype=dt)
     flags = getattr(mmap, "MAP_PRIVATE", 0) | getattr(mmap, "MAP_ANONYMOUS", 0)
     if populate and flags and hasattr(mmap, "MAP_POPULATE"):
         buf = mmap.mmap(-1, nbytes, flags=flags | mmap.MAP_POPULATE)

@@ -174,7 +174,8 @@ class _Store:
                 # is left behind whatever happens next
                 Path(name).unlink(missing_ok=True)
         else:
-            self.array = bulk_empty((n_frames, n_part, 3), np.float32, populate=True)
+            self.array = bulk_empty((n_frames, n_part, 3), np.float32, populate=True,
+                                    huge_pages=True)
 
     def finish(self, n_used: int) -> np.ndarray:
         a = self.array[:n_used]
