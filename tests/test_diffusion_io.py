@@ -407,6 +407,58 @@ def test_xdr_input_folder_is_never_written(tmp_path, fmt):
     np.testing.assert_array_equal(again.positions, s.positions)
 
 
+def test_amber_netcdf_trajectory_reads_like_the_dcd(tmp_path):
+    # AMBER NetCDF (MDAnalysis writes and reads it through scipy.io.netcdf_file when the
+    # netCDF4 package is absent): the same frames written as DCD and as NetCDF give the
+    # same continuous positions and frame interval (reference: the DCD, itself checked
+    # against MDAnalysis frame by frame above).
+    from MDAnalysis.coordinates.memory import MemoryReader
+
+    rng = np.random.default_rng(43)
+    n_frames, n = 120, 25
+    x = brownian_positions(n_frames, n, 2.0, D_A2PS, 25.0, rng).astype(np.float32)
+    top, dcd = _write_dcd(tmp_path, x, 25.0, 2.0)
+    with _quiet_mda():
+        warnings.simplefilter("ignore")
+        u = mda.Universe(str(top))
+        u.load_new(x, format=MemoryReader, dt=2.0,
+                   dimensions=np.tile([25.0, 25.0, 25.0, 90.0, 90.0, 90.0], (n_frames, 1)))
+        nc = tmp_path / "run.ncdf"
+        with mda.Writer(str(nc), n) as w:
+            for _ in u.trajectory:
+                w.write(u.atoms)
+    a = load_trajectory(top, dcd)[0]
+    b = load_trajectory(top, nc)[0]
+    assert b.n_frames == n_frames and b.dt == pytest.approx(a.dt, rel=1e-6)
+    assert b.sources[0].format.endswith("NCDFReader")
+    np.testing.assert_allclose(b.positions, a.positions, rtol=0, atol=1e-15)  # 1e-5 A
+
+
+# pytest turns an object's failing __del__ into this warning; here it must not happen at all
+@pytest.mark.filterwarnings("error::pytest.PytestUnraisableExceptionWarning")
+def test_format_needing_a_missing_package_says_which(tmp_path, capfd):
+    # MDAnalysis reads H5MD through h5py, an optional dependency (the h5md extra). Without
+    # it the error is one line naming the package, and the half-built reader MDAnalysis
+    # leaves behind prints no traceback when it is freed.
+    pytest.importorskip("MDAnalysis.coordinates.H5MD")
+    try:
+        import h5py  # noqa: F401
+    except ImportError:
+        pass
+    else:
+        pytest.skip("h5py is installed: the reader would try to read the file")
+    rng = np.random.default_rng(44)
+    top, _ = _write_dcd(tmp_path, brownian_positions(20, 5, 2.0, D_A2PS, 25.0, rng), 25.0, 2.0)
+    h5 = tmp_path / "run.h5md"
+    h5.write_bytes(b"\x89HDF\r\n\x1a\n" + bytes(2000))
+    r = CliRunner().invoke(main, ["-q", "diffusion", str(top), str(h5)])
+    assert r.exit_code == 2, r.output
+    lines = [ln for ln in r.output.splitlines() if ln.strip()]
+    assert len(lines) == 1 and "pip install h5py" in lines[0], r.output
+    err = capfd.readouterr().err
+    assert "Traceback" not in err and "Exception ignored" not in err, err
+
+
 def test_trr_velocities_and_kinetic_temperature(tmp_path):
     # TRR with positions and velocities (written by MDAnalysis, Angstrom/ps in memory).
     # References: MDAnalysis's own reading of the file, and equipartition computed here

@@ -68,11 +68,13 @@ References
 from __future__ import annotations
 
 import contextlib
+import gc
 import math
 import os
 import re
 import shutil
 import struct
+import sys
 import tempfile
 import warnings as _warnings
 from collections.abc import Sequence
@@ -923,6 +925,39 @@ def _mda_error(exc: BaseException) -> str:
     return text[:300] if text else type(exc).__name__
 
 
+def _ignore_unraisable(_: Any) -> None:
+    return None
+
+
+def _mda_call(fn: Any) -> tuple[Any, str | None]:
+    """``(fn(), None)``, or ``(None, message)`` if MDAnalysis raised.
+
+    MDAnalysis's warnings are silenced; so are the complaints of objects it leaves half
+    built when it fails (a reader whose ``__del__`` raises, e.g. the H5MD reader without
+    h5py): they are freed here, with the exception, while the hook that would print their
+    tracebacks is switched off, so an input error reaches the user as one line.
+    """
+    hook = sys.unraisablehook
+    sys.unraisablehook = _ignore_unraisable
+    try:
+        try:
+            with _warnings.catch_warnings():
+                _warnings.simplefilter("ignore")
+                return fn(), None
+        except Exception as exc:
+            message = _mda_error(exc)
+        gc.collect()  # what the exception kept alive goes now, not later at exit
+        return None, message
+    finally:
+        sys.unraisablehook = hook
+
+
+def _missing_package(message: str) -> str | None:
+    """The package an MDAnalysis error asks to install, if any."""
+    m = re.search(r"install (?:the )?([A-Za-z][\w.-]*)", message)
+    return m.group(1) if m else None
+
+
 def _open_topology(topology: Path, reduced: bool, *, first: Path | None = None,
                    links: _PrivateLinks | None = None) -> Any:
     """A Universe of `topology`; with `first`, that trajectory already loaded when possible.
@@ -941,24 +976,21 @@ def _open_topology(topology: Path, reduced: bool, *, first: Path | None = None,
         except InputError:
             plain = False
         if plain:
-            try:
-                with _warnings.catch_warnings():
-                    _warnings.simplefilter("ignore")
-                    return mda.Universe(str(topology), str(links.path(first)),
-                                        **({"convert_units": False} if reduced else {}))
-            except Exception:
-                pass  # opened one by one below: the error then names the culprit
-    try:
-        with _warnings.catch_warnings():
-            _warnings.simplefilter("ignore")
-            return mda.Universe(str(topology), **kw)
-    except Exception as exc:
+            both, _ = _mda_call(lambda: mda.Universe(
+                str(topology), str(links.path(first)),
+                **({"convert_units": False} if reduced else {})))
+            if both is not None:
+                return both
+            # otherwise opened one by one below: the error then names the culprit
+    u, message = _mda_call(lambda: mda.Universe(str(topology), **kw))
+    if message is not None:
         raise InputError(
-            f"cannot read the topology ({_mda_error(exc)})",
+            f"cannot read the topology ({message})",
             path=str(topology),
             expected="a topology MDAnalysis reads (PDB, GRO, PSF, TPR, LAMMPS data, ...)",
             fix="check the file and its suffix (MDAnalysis chooses the parser by suffix)",
-        ) from None
+        )
+    return u
 
 
 def _load_trajectory_into(u: Any, traj: Path, reduced: bool, links: _PrivateLinks
@@ -972,27 +1004,30 @@ def _load_trajectory_into(u: Any, traj: Path, reduced: bool, links: _PrivateLink
         if dump.images:
             kw["additional_columns"] = ["ix", "iy", "iz"]
     opened = links.path(traj)
-    try:
-        with _warnings.catch_warnings():
-            _warnings.simplefilter("ignore")
-            u.load_new(str(opened), **kw)
-            n_atoms = u.trajectory.n_atoms
-            _ = len(u.trajectory)
-    except Exception as exc:
-        msg = _mda_error(exc).replace(str(opened), str(traj))
+
+    def load() -> int:
+        u.load_new(str(opened), **kw)
+        _ = len(u.trajectory)
+        return int(u.trajectory.n_atoms)
+
+    n_atoms, message = _mda_call(load)
+    if message is not None:
+        msg = message.replace(str(opened), str(traj))
         if "atoms" in msg.lower() and ("match" in msg.lower() or "same number" in msg.lower()):
             raise InputError(
                 f"the trajectory does not match the topology ({msg})",
                 path=str(traj),
                 expected=f"{u.atoms.n_atoms} atoms, as in the topology",
                 fix="give the topology this trajectory was written with",
-            ) from None
+            )
+        package = _missing_package(msg)
         raise InputError(
             f"cannot read the trajectory ({msg})",
             path=str(traj),
-            expected="a trajectory MDAnalysis reads (DCD, XTC, TRR, LAMMPS dump, ...)",
-            fix="check the file and its suffix",
-        ) from None
+            expected="a trajectory MDAnalysis reads (DCD, XTC, TRR, NetCDF, LAMMPS dump, ...)",
+            fix=(f"install the package MDAnalysis needs for this format: pip install "
+                 f"{package}" if package else "check the file and its suffix"),
+        )
     if n_atoms != u.atoms.n_atoms:
         raise InputError(
             f"the trajectory has {n_atoms} atoms, the topology {u.atoms.n_atoms}",
