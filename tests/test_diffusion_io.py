@@ -459,8 +459,58 @@ def test_format_needing_a_missing_package_says_which(tmp_path, capfd):
     assert "Traceback" not in err and "Exception ignored" not in err, err
 
 
-def test_trr_velocities_and_kinetic_temperature(tmp_path):
-    # TRR with positions and velocities (written by MDAnalysis, Angstrom/ps in memory).
+def _allow_fork(monkeypatch):
+    """Let the forked XTC/TRR decoding take small test files."""
+    monkeypatch.setattr(trajectory, "_FORK_MIN_FRAMES", 10)
+    monkeypatch.setattr(trajectory, "_FORK_MIN_VALUES", 1)
+    monkeypatch.delenv(trajectory.NO_FORK_ENV, raising=False)
+
+
+@pytest.fixture()
+def small_fork_threshold(monkeypatch):
+    _allow_fork(monkeypatch)
+
+
+@pytest.mark.skipif(not hasattr(__import__("os"), "fork"), reason="needs fork")
+@pytest.mark.parametrize("fmt", ["xtc", "trr"])
+def test_forked_decoding_equals_one_process(tmp_path, monkeypatch, small_fork_threshold,
+                                            fmt):
+    # Reference: the same file read in one process (TRANSPORT_NO_FORK), i.e. MDAnalysis's
+    # reader frame after frame. The child's frames must come back unchanged (positions,
+    # times, boxes), also when the child fails and this process reads them itself.
+    rng = np.random.default_rng(45)
+    x = brownian_positions(150, 30, 2.0, D_A2PS, 25.0, rng)
+    top, traj = _write_xdr(tmp_path, x, 25.0, 2.0, name=f"run.{fmt}")
+    made = []
+    real = trajectory._ForkedFrames.__init__
+
+    def spy(self, *a, **k):
+        real(self, *a, **k)
+        made.append(self)
+
+    with monkeypatch.context() as m:
+        m.setattr(trajectory._ForkedFrames, "__init__", spy)
+        forked = load_trajectory(top, traj)[0]
+    assert len(made) == 1 and made[0].start == int(0.4 * 150)  # the child took the rest
+    with monkeypatch.context() as m:
+        m.setenv(trajectory.NO_FORK_ENV, "1")
+        ref = load_trajectory(top, traj)[0]
+    _assert_same_series(forked, ref)
+    assert forked.sources[0].sha256 == ref.sources[0].sha256
+
+    def broken(self, *a, **k):  # runs in the child (fork copies the patched class)
+        raise RuntimeError("decoding failed")
+
+    with monkeypatch.context() as m:
+        m.setattr(trajectory._ForkedFrames, "_decode", broken)
+        fallback = load_trajectory(top, traj)[0]
+    _assert_same_series(fallback, ref)
+
+
+@pytest.mark.parametrize("forked", [False, True], ids=["one-process", "forked"])
+def test_trr_velocities_and_kinetic_temperature(tmp_path, monkeypatch, forked):
+    # TRR with positions and velocities (written by MDAnalysis, Angstrom/ps in memory), read
+    # in one process and with the later frames decoded by a forked child.
     # References: MDAnalysis's own reading of the file, and equipartition computed here
     # directly, T = sum m (v - v_com)^2 / (k_B (3N - 3)) averaged over frames (common
     # practice), with CODATA k_B and atomic mass constant from scipy.constants.
@@ -488,6 +538,10 @@ def test_trr_velocities_and_kinetic_temperature(tmp_path):
         v_ref = np.array([ts.velocities.copy() for ts in ref.trajectory])
         masses = np.asarray(ref.atoms.masses, dtype=np.float64)  # MDAnalysis's own masses
     assert sorted(set(np.round(masses))) == [12.0, 16.0]
+    if forked:
+        _allow_fork(monkeypatch)
+    else:
+        monkeypatch.setenv(trajectory.NO_FORK_ENV, "1")
     s = load_trajectory(tmp_path / "top.pdb", tmp_path / "run.trr")[0]
     assert s.velocities is not None
     np.testing.assert_allclose(s.velocities / 100.0, v_ref, rtol=1e-6)  # 1 A/ps = 100 m/s
