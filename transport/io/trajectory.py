@@ -41,7 +41,11 @@ and LAMMPS layout of fixed-size frame records) are read a whole block of frames 
 straight from the file (:class:`_DCDFrames`), which is several times faster than
 MDAnalysis's frame-by-frame Timesteps; this is used only after the first and last frames
 read that way have been compared with MDAnalysis's reader of the same file (positions
-exactly, box, time), and every record length is checked. Positions (and velocities) are
+exactly, box, time), and every record length is checked. MDAnalysis's XTC/TRR decoder
+holds the GIL, so for big XTC/TRR files on Linux a forked child process decodes the later
+60% of the frames into shared memory while this process decodes and processes the rest
+(:class:`_ForkedFrames`; the environment variable ``TRANSPORT_NO_FORK`` turns this off; a
+child that fails is replaced by reading its frames here). Positions (and velocities) are
 stored as float32, in memory or, when they would exceed `memory_limit`, in a scratch
 :class:`numpy.memmap` file that is deleted when no longer referenced.
 
