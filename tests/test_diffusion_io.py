@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import gzip
 import json
+import os
 import warnings
 from pathlib import Path
 
@@ -505,6 +506,100 @@ def test_forked_decoding_equals_one_process(tmp_path, monkeypatch, small_fork_th
         m.setattr(trajectory._ForkedFrames, "_decode", broken)
         fallback = load_trajectory(top, traj)[0]
     _assert_same_series(fallback, ref)
+
+
+@pytest.mark.parametrize("fmt", ["xtc", "trr", "lammpstrj"])
+def test_a_partial_last_frame_is_reported(tmp_path, fmt):
+    # An engine stopped while writing leaves part of a last frame. The file is built as the
+    # complete file of one frame fewer plus the first 40 bytes of the next frame, so the
+    # partial frame is exactly 40 bytes (independent of any format parsing here).
+    rng = np.random.default_rng(46)
+    x = brownian_positions(60, 20, 2.0, D_A2PS, 25.0, rng)
+    if fmt == "lammpstrj":
+        top = _write_atomic_data(tmp_path / "top.data", 20, 25.0)
+        cols, steps = "id type x y z", np.arange(60) * 10
+        short = _write_dump(tmp_path / "short.lammpstrj", x[:-1], 25.0, steps[:-1], cols)
+        full = _write_dump(tmp_path / "full.lammpstrj", x, 25.0, steps, cols)
+        kw = {"units": "real", "timestep": 1.0}
+    else:
+        top, short = _write_xdr(tmp_path, x[:-1], 25.0, 2.0, name=f"short.{fmt}")
+        _, full = _write_xdr(tmp_path, x, 25.0, 2.0, name=f"full.{fmt}", topology="t2.pdb")
+        kw = {}
+    head = short.read_bytes()
+    assert full.read_bytes()[:len(head)] == head  # the same frames, then one more
+    cut = tmp_path / f"cut.{fmt}"
+    cut.write_bytes(full.read_bytes()[:len(head) + 40])
+    s = load_trajectory(top, cut, **kw)[0]
+    ref = load_trajectory(top, short, **kw)[0]
+    assert s.n_frames == 59
+    np.testing.assert_array_equal(s.positions, ref.positions)
+    note = [w for w in s.warnings if "partial" in w or "incomplete" in w]
+    assert len(note) == 1, s.warnings
+    if fmt != "lammpstrj":
+        assert "ends 40 bytes into a frame after frame 58" in note[0]
+    assert not [w for w in ref.warnings if "partial" in w or "incomplete" in w]
+
+
+def test_damaged_frames_in_the_middle_are_input_errors(tmp_path):
+    # A frame in the middle whose header gives a wrong atom count (the word after the magic
+    # number, XTC 1995 / TRR 1993, big-endian; GROMACS xdrfile format, from memory and seen
+    # in the files MDAnalysis writes): the XTC frame cannot be decoded, and MDAnalysis's TRR
+    # frame index stops there, so the rest of the file would be ignored; and a dump frame
+    # with missing atom lines. Each is an error naming the file and the frame, not a shorter
+    # analysis. (Garbage inside compressed XTC data is not used: the compiled decoder may
+    # write out of bounds on it, which no caller can guard against.)
+    rng = np.random.default_rng(47)
+    x = brownian_positions(100, 20, 2.0, D_A2PS, 25.0, rng)
+    cases = {}
+    for fmt, number in (("xtc", 1995), ("trr", 1993)):
+        magic = number.to_bytes(4, "big")
+        top, traj = _write_xdr(tmp_path, x, 25.0, 2.0, name=f"run.{fmt}")
+        data = bytearray(traj.read_bytes())
+        starts = [i for i in range(0, len(data) - 3, 4) if data[i:i + 4] == magic]
+        assert len(starts) == 100 and starts[0] == 0
+        data[starts[50] + 4:starts[50] + 8] = (7).to_bytes(4, "big")  # frame 50: 7 atoms
+        bad = tmp_path / f"bad.{fmt}"
+        bad.write_bytes(bytes(data))
+        cases[fmt] = (top, bad, {})
+    top = _write_atomic_data(tmp_path / "top.data", 20, 25.0)
+    dump = _write_dump(tmp_path / "run.lammpstrj", x, 25.0, np.arange(100) * 10,
+                       "id type x y z")
+    frames = dump.read_text().split("ITEM: TIMESTEP\n")
+    lines = frames[51].split("\n")
+    frames[51] = "\n".join(lines[:9] + lines[14:])  # frame 50 loses 5 atom lines
+    bad_dump = tmp_path / "bad.lammpstrj"
+    bad_dump.write_text("ITEM: TIMESTEP\n".join(frames))
+    cases["dump"] = (top, bad_dump, {"units": "real", "timestep": 1.0})
+    expect = {"xtc": "frame 50 of 100 cannot be read",
+              "trr": "~50 frames) follow frame 49",
+              "dump": "frame 50 of"}
+    for fmt, (top, bad, kw) in cases.items():
+        with pytest.raises(InputError) as err:
+            load_trajectory(top, bad, **kw)
+        text = str(err.value)
+        assert str(bad) in text and expect[fmt] in text, (fmt, text)
+    # the command: one line, exit 2 (the XTC decoder's own message on stderr is held back)
+    top, bad, _ = cases["xtc"]
+    r = CliRunner().invoke(main, ["-q", "diffusion", str(top), str(bad)])
+    assert r.exit_code == 2
+    assert [ln for ln in r.output.splitlines() if ln.strip()] == [
+        ln for ln in r.output.splitlines() if ln.startswith("transport: error:")]
+
+
+def test_compiled_reader_messages_are_held_back_on_input_errors(capfd):
+    # What a compiled decoder prints on file descriptor 2 (the XTC decoder prints "Cannot
+    # allocate memory for decompressing coordinates." on a damaged frame) is replayed after
+    # a successful read and dropped when the read ends in an input error (one line then).
+    with trajectory._c_stderr_held(True):
+        os.write(2, b"decoder says hello\n")
+    assert capfd.readouterr().err == "decoder says hello\n"
+    with pytest.raises(InputError), trajectory._c_stderr_held(True):
+        os.write(2, b"Cannot allocate memory for decompressing coordinates.\n")
+        raise InputError("frame 3 cannot be read")
+    assert capfd.readouterr().err == ""
+    with trajectory._c_stderr_held(False):  # progress bar on: nothing is held
+        os.write(2, b"shown at once\n")
+    assert capfd.readouterr().err == "shown at once\n"
 
 
 @pytest.mark.parametrize("forked", [False, True], ids=["one-process", "forked"])

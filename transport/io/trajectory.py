@@ -96,6 +96,7 @@ from .._parallel import available_cpus, lane_map
 from ..errors import InputError
 from ..series import PositionSeries, Source
 from ..units import UnitSystem, get_unit_system
+from ._open import compression_of
 
 __all__ = [
     "GROUP_BY",
@@ -1586,6 +1587,137 @@ def _fork_split(u: Any, n_atoms: int, velocities: bool, memory_limit: float) -> 
     return max(1, int(_FORK_OWN_SHARE * n))
 
 
+@contextlib.contextmanager
+def _c_stderr_held(enabled: bool) -> Any:
+    """Hold what compiled readers print on file descriptor 2 while frames are read.
+
+    The XTC decoder prints e.g. "Cannot allocate memory for decompressing coordinates." on a
+    damaged frame before MDAnalysis raises; an input error must reach the user as one line.
+    The text is kept in a temporary file and written out after a successful read (nothing
+    is lost), dropped when the read fails with an :class:`InputError`. Off while a progress
+    bar is shown (it writes to the same descriptor).
+    """
+    if not enabled:
+        yield
+        return
+    try:
+        saved = os.dup(2)
+    except OSError:
+        yield
+        return
+    with tempfile.TemporaryFile() as held:
+        sys.stderr.flush()
+        os.dup2(held.fileno(), 2)
+        failed_on_input = False
+        try:
+            yield
+        except InputError:
+            failed_on_input = True
+            raise
+        finally:
+            sys.stderr.flush()
+            os.dup2(saved, 2)
+            os.close(saved)
+            if not failed_on_input:
+                held.seek(0)
+                text = held.read().decode("utf-8", "replace")
+                if text:
+                    sys.stderr.write(text)
+
+
+def _frames(trajectory: Any, first: int, n_file: int, p: Path) -> Any:
+    """Yield ``(index, Timestep)`` from an MDAnalysis trajectory iterator; an error while
+    MDAnalysis decodes a frame becomes an :class:`InputError` naming the frame."""
+    it = iter(trajectory)
+    i = first
+    while True:
+        try:
+            ts = next(it)
+        except StopIteration:
+            return
+        except Exception as exc:
+            raise InputError(
+                f"frame {i} of {n_file} cannot be read ({_mda_error(exc)})", path=str(p),
+                expected="frames MDAnalysis can decode",
+                fix=f"repair the file, or truncate it before frame {i}") from None
+        yield i, ts
+        i += 1
+
+
+def _xtc_frame_bytes(p: Path, offset: int) -> int | None:
+    """Size of the compressed XTC frame starting at `offset`, from its header, or None.
+
+    Layout (the GROMACS xdrfile format, big-endian, from memory): magic 1995, atom count,
+    step, time, box (9 floats), atom count again, then for more than 9 atoms the precision,
+    minimum and maximum integers (3 + 3), the small index and the byte count of the
+    compressed coordinates, which follow padded to 4 bytes: 92 bytes of header in all.
+    """
+    try:
+        with open(p, "rb") as fh:
+            fh.seek(offset)
+            head = fh.read(92)
+        if len(head) < 92:
+            return None
+        magic, natoms = struct.unpack(">2i", head[:8])
+        if magic != 1995 or natoms <= 9 or struct.unpack(">i", head[52:56])[0] != natoms:
+            return None
+        nbytes = struct.unpack(">i", head[88:92])[0]
+        return 92 + (nbytes + 3) // 4 * 4 if nbytes >= 0 else None
+    except (OSError, struct.error):
+        return None
+
+
+def _unread_tail(u: Any, p: Path, n_file: int) -> str | None:
+    """A note when data follow the last frame MDAnalysis indexed in an XTC/TRR file or an
+    uncompressed LAMMPS dump (a partial last frame); InputError when whole frames do (the
+    file is damaged there and MDAnalysis's index stopped early). None otherwise, and when
+    it cannot be told (MDAnalysis's XDR frame index is a private attribute: without it no
+    check is made)."""
+    name = type(u.trajectory).__name__
+    size = p.stat().st_size
+    damaged = dict(path=str(p), expected="frames up to the end of the file")
+    if name in ("XTCReader", "TRRReader") and n_file >= 2:
+        try:
+            offsets = np.asarray(u.trajectory._xdr.offsets, dtype=np.int64)
+        except Exception:
+            return None
+        if offsets.size != n_file:
+            return None
+        steps = np.diff(offsets)
+        mean = float(steps.mean())
+        last = _xtc_frame_bytes(p, int(offsets[-1])) if name == "XTCReader" else None
+        fixed = last is not None or bool(steps.min() == steps.max())  # TRR: equal frames
+        # the bytes beyond a last frame of its own size (XTC header) or of the usual size
+        extra = float(size - offsets[-1]) - (mean if last is None else last)
+        whole = extra >= mean if fixed else extra > 1.5 * mean
+        if whole:
+            raise InputError(
+                f"about {extra:.0f} bytes (~{extra / mean:.0f} frames) follow frame "
+                f"{n_file - 1}, the last one MDAnalysis can find: the file is damaged there",
+                fix=f"repair the file, or truncate it after frame {n_file - 1}", **damaged)
+        if (fixed and extra > 0) or (not fixed and extra > 0.5 * mean):
+            return (f"{p}: the file ends {'' if fixed else 'about '}{extra:.0f} bytes into a "
+                    f"frame after frame {n_file - 1} (the run probably stopped while writing "
+                    "it); that partial frame was not read")
+        return None
+    if name == "DumpReader" and compression_of(p) is None:
+        with open(p, "rb") as fh, mmap.mmap(fh.fileno(), 0, access=mmap.ACCESS_READ) as mm:
+            found = 0
+            at = mm.find(b"ITEM: TIMESTEP")
+            while at >= 0:
+                found += 1
+                at = mm.find(b"ITEM: TIMESTEP", at + 14)
+        if found > n_file + 1:
+            raise InputError(
+                f"the dump has {found} frames but only the first {n_file} can be read: frame "
+                f"{n_file} is damaged", fix=f"repair the file, or truncate it before frame "
+                f"{n_file}", **damaged)
+        if found == n_file + 1:
+            return (f"{p}: the last frame ({n_file}) is incomplete (the run probably stopped "
+                    "while writing it) and was not read")
+    return None
+
+
 def _bulk_dcd(u: Any, p: Path) -> _DCDFrames | None:
     """A :class:`_DCDFrames` for the DCD file loaded in `u`, or None (read frame by frame)
     when the file is not a plain DCD or its first and last frames differ from MDAnalysis's.
@@ -1779,8 +1911,9 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
             fill = b
             flush()
 
+    file_notes: list[str] = []
     bar = _progress(progress, sum(lengths))
-    with bar:
+    with bar, _c_stderr_held(not progress):
         for k, (p, dump) in enumerate(zip(paths, dumps, strict=True)):
             if len(paths) > 1:
                 _load_trajectory_into(u, p, reduced, links)
@@ -1826,10 +1959,12 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
                             n_atoms, bool(has_v))
                     except OSError:  # no fork here after all: read everything below
                         split = None
+                seen = 0  # frames of this file taken (or skipped as a repeat)
                 try:
-                    for i, ts in enumerate(u.trajectory):
+                    for i, ts in _frames(u.trajectory, 0, n_file, p):
                         if i == split:
                             break
+                        seen = i + 1
                         if k > 0 and i == 0 and repeated(ts, clock):
                             continue
                         take(ts, p, kind)
@@ -1841,13 +1976,23 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
                     flush()
                     if forked.wait():
                         feed(forked, p, kind)
+                        seen = n_file
                     else:  # the child failed: read its frames here
-                        for ts in u.trajectory[split:]:
+                        for i, ts in _frames(u.trajectory[split:], split, n_file, p):
                             take(ts, p, kind)
+                            seen = i + 1
+                if seen < n_file:  # MDAnalysis ends an iteration quietly at a read error
+                    raise InputError(
+                        f"frame {seen} of {n_file} cannot be read (the file is damaged "
+                        "there)", path=str(p), expected="frames MDAnalysis can decode",
+                        fix=f"repair the file, or truncate it before frame {seen}")
+                tail_note = _unread_tail(u, p, n_file)
+                if tail_note:
+                    file_notes.append(tail_note)
             flush()
     proc.check(final=True)
     res = coll.finish()
-    warn = list(notes)
+    warn = [*notes, *file_notes]
     for p, n in zip(paths, lengths, strict=True):
         tail = _dcd_partial_tail(p, n, n_atoms) if p.suffix.lower() == ".dcd" else None
         if tail:
