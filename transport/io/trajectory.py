@@ -1802,9 +1802,10 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
     has_v: bool | None = None
     duplicates = 0
     # The frames of a block are copied into reused buffers (one copy per frame, the only
-    # per-frame work) and processed together. (A helper thread processing one block while
-    # the next is read gained nothing: the frame loop holds the GIL, and the helper waited
-    # for it after every numpy call.)
+    # per-frame work; a whole block at once from plain DCD files and from the shared memory
+    # of a forked XTC/TRR decoder) and processed together. (A helper thread processing one
+    # block while the next is read gained nothing: MDAnalysis's frame loop holds the GIL,
+    # and the helper waited for it after every numpy call.)
     bb = _BlockBuffers(block_size, n_atoms, mode == "images")
     fill = 0
     cur: dict[str, Any] = {}  # the current file: path, factors, clock, frame index in file
