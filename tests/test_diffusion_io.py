@@ -12,6 +12,7 @@ from __future__ import annotations
 import gzip
 import json
 import os
+import signal
 import warnings
 from pathlib import Path
 
@@ -506,6 +507,14 @@ def test_forked_decoding_equals_one_process(tmp_path, monkeypatch, small_fork_th
         m.setattr(trajectory._ForkedFrames, "_decode", broken)
         fallback = load_trajectory(top, traj)[0]
     _assert_same_series(fallback, ref)
+
+    def crash(self, *a, **k):  # the compiled decoder dying on damaged data, in the child
+        os.kill(os.getpid(), signal.SIGKILL)
+
+    with monkeypatch.context() as m:
+        m.setattr(trajectory._ForkedFrames, "_decode", crash)
+        with pytest.raises(InputError, match=r"decoding frames 60-149 ended on signal"):
+            load_trajectory(top, traj)
 
 
 @pytest.mark.parametrize("fmt", ["xtc", "trr", "lammpstrj"])

@@ -1549,9 +1549,24 @@ class _ForkedFrames:
             if got != self.count:
                 raise RuntimeError("fewer frames than announced")
 
-    def wait(self) -> bool:
-        """Wait for the child; True if it decoded every frame."""
+    def wait(self, path: Path) -> bool:
+        """Wait for the child; True if it decoded every frame, False if it failed.
+
+        Raises
+        ------
+        InputError
+            The child was killed by a signal (a crash of the compiled decoder: decoding the
+            same frames here would crash this process too).
+        """
         _, status = os.waitpid(self.pid, 0)
+        if os.WIFSIGNALED(status):
+            raise InputError(
+                f"the process decoding frames {self.start}-{self.start + self.count - 1} "
+                f"ended on signal {os.WTERMSIG(status)}: MDAnalysis's decoder crashed (the "
+                "file is damaged there) or the system stopped it (out of memory?)",
+                path=str(path), expected="frames MDAnalysis can decode",
+                fix=f"check the file from frame {self.start} on (repair or truncate it); "
+                    f"if memory is short, set {NO_FORK_ENV}=1 (one process, no shared copy)")
         return (os.WIFEXITED(status) and os.WEXITSTATUS(status) == 0
                 and int(self._done[0]) == 1)
 
@@ -1975,7 +1990,7 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
                     raise
                 if forked is not None:
                     flush()
-                    if forked.wait():
+                    if forked.wait(p):
                         feed(forked, p, kind)
                         seen = n_file
                     else:  # the child failed: read its frames here
