@@ -23,7 +23,7 @@ from click.testing import CliRunner
 from transport.cli import main
 from transport.diffusion import analyse_diffusion, species_msd
 from transport.errors import InputError
-from transport.io import trajectory
+from transport.io import _dcd, _frames, trajectory
 from transport.io.trajectory import load_trajectory
 from transport.synthetic import brownian_positions
 
@@ -269,7 +269,7 @@ def test_dcd_blocks_equal_mdanalysis_frame_by_frame_with_a_fluctuating_box(
         made = _spy_blocks(m)
         blocks = load_trajectory(top, traj, timestep=0.5)[0]
         times = load_trajectory(top, traj)[0]  # times stored in the file
-    assert len(made) == 2 and all(isinstance(f, trajectory._DCDFrames) for f in made)
+    assert len(made) == 2 and all(isinstance(f, _dcd._DCDFrames) for f in made)
     with monkeypatch.context() as m:
         _frame_by_frame(m)
         ref = load_trajectory(top, traj, timestep=0.5)[0]
@@ -463,9 +463,9 @@ def test_format_needing_a_missing_package_says_which(tmp_path, capfd):
 
 def _allow_fork(monkeypatch):
     """Let the forked XTC/TRR decoding take small test files."""
-    monkeypatch.setattr(trajectory, "_FORK_MIN_FRAMES", 10)
-    monkeypatch.setattr(trajectory, "_FORK_MIN_VALUES", 1)
-    monkeypatch.delenv(trajectory.NO_FORK_ENV, raising=False)
+    monkeypatch.setattr(_frames, "_FORK_MIN_FRAMES", 10)
+    monkeypatch.setattr(_frames, "_FORK_MIN_VALUES", 1)
+    monkeypatch.delenv(_frames.NO_FORK_ENV, raising=False)
 
 
 @pytest.fixture()
@@ -484,18 +484,18 @@ def test_forked_decoding_equals_one_process(tmp_path, monkeypatch, small_fork_th
     x = brownian_positions(150, 30, 2.0, D_A2PS, 25.0, rng)
     top, traj = _write_xdr(tmp_path, x, 25.0, 2.0, name=f"run.{fmt}")
     made = []
-    real = trajectory._ForkedFrames.__init__
+    real = _frames._ForkedFrames.__init__
 
     def spy(self, *a, **k):
         real(self, *a, **k)
         made.append(self)
 
     with monkeypatch.context() as m:
-        m.setattr(trajectory._ForkedFrames, "__init__", spy)
+        m.setattr(_frames._ForkedFrames, "__init__", spy)
         forked = load_trajectory(top, traj)[0]
     assert len(made) == 1 and made[0].start == int(0.4 * 150)  # the child took the rest
     with monkeypatch.context() as m:
-        m.setenv(trajectory.NO_FORK_ENV, "1")
+        m.setenv(_frames.NO_FORK_ENV, "1")
         ref = load_trajectory(top, traj)[0]
     _assert_same_series(forked, ref)
     assert forked.sources[0].sha256 == ref.sources[0].sha256
@@ -504,7 +504,7 @@ def test_forked_decoding_equals_one_process(tmp_path, monkeypatch, small_fork_th
         raise RuntimeError("decoding failed")
 
     with monkeypatch.context() as m:
-        m.setattr(trajectory._ForkedFrames, "_decode", broken)
+        m.setattr(_frames._ForkedFrames, "_decode", broken)
         fallback = load_trajectory(top, traj)[0]
     _assert_same_series(fallback, ref)
 
@@ -512,7 +512,7 @@ def test_forked_decoding_equals_one_process(tmp_path, monkeypatch, small_fork_th
         os.kill(os.getpid(), signal.SIGKILL)
 
     with monkeypatch.context() as m:
-        m.setattr(trajectory._ForkedFrames, "_decode", crash)
+        m.setattr(_frames._ForkedFrames, "_decode", crash)
         with pytest.raises(InputError, match=r"decoding frames 60-149 ended on signal"):
             load_trajectory(top, traj)
 
@@ -599,14 +599,14 @@ def test_compiled_reader_messages_are_held_back_on_input_errors(capfd):
     # What a compiled decoder prints on file descriptor 2 (the XTC decoder prints "Cannot
     # allocate memory for decompressing coordinates." on a damaged frame) is replayed after
     # a successful read and dropped when the read ends in an input error (one line then).
-    with trajectory._c_stderr_held(True):
+    with _frames._c_stderr_held(True):
         os.write(2, b"decoder says hello\n")
     assert capfd.readouterr().err == "decoder says hello\n"
-    with pytest.raises(InputError), trajectory._c_stderr_held(True):
+    with pytest.raises(InputError), _frames._c_stderr_held(True):
         os.write(2, b"Cannot allocate memory for decompressing coordinates.\n")
         raise InputError("frame 3 cannot be read")
     assert capfd.readouterr().err == ""
-    with trajectory._c_stderr_held(False):  # progress bar on: nothing is held
+    with _frames._c_stderr_held(False):  # progress bar on: nothing is held
         os.write(2, b"shown at once\n")
     assert capfd.readouterr().err == "shown at once\n"
 
@@ -645,7 +645,7 @@ def test_trr_velocities_and_kinetic_temperature(tmp_path, monkeypatch, forked):
     if forked:
         _allow_fork(monkeypatch)
     else:
-        monkeypatch.setenv(trajectory.NO_FORK_ENV, "1")
+        monkeypatch.setenv(_frames.NO_FORK_ENV, "1")
     s = load_trajectory(tmp_path / "top.pdb", tmp_path / "run.trr")[0]
     assert s.velocities is not None
     np.testing.assert_allclose(s.velocities / 100.0, v_ref, rtol=1e-6)  # 1 A/ps = 100 m/s

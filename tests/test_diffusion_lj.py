@@ -112,9 +112,9 @@ def test_a_dcd_cut_inside_its_last_frame_is_read_with_a_warning(tmp_path, dcd_se
 def test_dcd_blocks_equal_mdanalysis_frame_by_frame(dcd_series, monkeypatch):
     """The engine's own DCD, read a block of frames at a time (the fixture) and through
     MDAnalysis's reader one Timestep per frame (the reference): the same series."""
-    from transport.io import trajectory
+    from transport.io import _dcd, trajectory
 
-    lay = trajectory._dcd_layout(DCD)
+    lay = _dcd._dcd_layout(DCD)
     assert lay is not None and lay.cell and lay.n_atoms == 1372  # the plain layout
     monkeypatch.setattr(trajectory, "_bulk_dcd", lambda u, p: None)
     ref = load_trajectory(TOPOLOGY, DCD, units="lj", timestep=0.005)[0]

@@ -38,14 +38,14 @@ reused work arrays (fresh block-sized arrays would be page-faulted in every time
 particles and scaled to internal units on its way into the store; for a constant box the
 block is split into lanes of atoms worked on in threads. Plain DCD files (the CHARMM, NAMD
 and LAMMPS layout of fixed-size frame records) are read a whole block of frames at a time
-straight from the file (:class:`_DCDFrames`), which is several times faster than
-MDAnalysis's frame-by-frame Timesteps; this is used only after the first and last frames
-read that way have been compared with MDAnalysis's reader of the same file (positions
-exactly, box, time), and every record length is checked. MDAnalysis's XTC/TRR decoder
-holds the GIL, so for big XTC/TRR files on Linux a forked child process decodes the later
-60% of the frames into shared memory while this process decodes and processes the rest
-(:class:`_ForkedFrames`; the environment variable ``TRANSPORT_NO_FORK`` turns this off; a
-child that fails is replaced by reading its frames here). Positions (and velocities) are
+straight from the file (:mod:`transport.io._dcd`), several times faster than MDAnalysis's
+frame-by-frame Timesteps; this is used only after the first and last frames read that way
+have been compared with MDAnalysis's reader of the same file (positions exactly, box,
+time), and every record length is checked. MDAnalysis's XTC/TRR decoder holds the GIL, so
+for big XTC/TRR files on Linux a forked child process decodes the later 60% of the frames
+into shared memory while this process decodes and processes the rest
+(:mod:`transport.io._frames`; the environment variable ``TRANSPORT_NO_FORK`` turns this
+off; a child that fails is replaced by reading its frames here). Positions (and velocities) are
 stored as float32, in memory or, when they would exceed `memory_limit`, in a scratch
 :class:`numpy.memmap` file that is deleted when no longer referenced.
 
@@ -74,12 +74,9 @@ from __future__ import annotations
 import contextlib
 import gc
 import math
-import mmap
 import os
 import re
 import shutil
-import signal
-import struct
 import sys
 import tempfile
 import warnings as _warnings
@@ -96,7 +93,15 @@ from .._parallel import available_cpus, lane_map
 from ..errors import InputError
 from ..series import PositionSeries, Source
 from ..units import UnitSystem, get_unit_system
-from ._open import compression_of
+from ._dcd import _bulk_dcd, _dcd_partial_tail
+from ._frames import (
+    _c_stderr_held,
+    _fork_split,
+    _ForkedFrames,
+    _frames,
+    _mda_error,
+    _unread_tail,
+)
 
 __all__ = [
     "GROUP_BY",
@@ -699,201 +704,6 @@ class _DumpInfo:
     velocities: bool
 
 
-@dataclass(frozen=True)
-class _DCDLayout:
-    """Where the frames of a plain DCD file are: the header's size and one frame's records.
-
-    The layout (Fortran records, each framed by its byte count: a control record of 20
-    integers, titles, the atom count, then per frame an optional unit cell of 6 doubles and
-    the x, y, z records of float32) is the CHARMM/NAMD/LAMMPS DCD format as documented with
-    those programs (from memory). Files with fixed atoms or a fourth dimension are not
-    "plain" here.
-    """
-
-    endian: str  # "<" or ">"
-    header: int  # bytes before the first frame
-    n_atoms: int
-    cell: bool  # each frame starts with a unit-cell record
-    istart: int  # step number of the first frame (control record)
-    nsavc: int  # steps between frames (control record)
-    size: int  # file size in bytes
-
-    @property
-    def frame_dtype(self) -> np.dtype:
-        """One frame as a structured record (markers, cell, coordinates)."""
-        e, n = self.endian, self.n_atoms
-        fields: list[tuple[str, str] | tuple[str, str, int]] = []
-        if self.cell:
-            fields += [("c0", e + "i4"), ("cell", e + "f8", 6), ("c1", e + "i4")]
-        for ax in "xyz":
-            fields += [(ax + "0", e + "i4"), (ax, e + "f4", n), (ax + "1", e + "i4")]
-        return np.dtype(fields)
-
-    @property
-    def frame_bytes(self) -> int:
-        return self.frame_dtype.itemsize
-
-    def whole_frames(self) -> tuple[int, int]:
-        """(whole frames in the file, bytes left after them)."""
-        return divmod(self.size - self.header, self.frame_bytes)
-
-
-def _dcd_layout(p: Path) -> _DCDLayout | None:
-    """The :class:`_DCDLayout` of a DCD file, or None if its header is not the plain one."""
-    try:
-        size = p.stat().st_size
-        with open(p, "rb") as fh:
-            head = fh.read(4096)
-        for end in "<>":
-            if len(head) < 92 or struct.unpack(end + "i", head[:4])[0] != 84 \
-                    or head[4:8] != b"CORD":
-                continue
-            ic = struct.unpack(end + "20i", head[8:88])
-            if struct.unpack(end + "i", head[88:92])[0] != 84:
-                return None
-            pos = 92
-            title_bytes = struct.unpack(end + "i", head[pos: pos + 4])[0]
-            if struct.unpack(end + "i", head[pos + 4 + title_bytes: pos + 8 + title_bytes]
-                             )[0] != title_bytes:
-                return None
-            pos += 8 + title_bytes
-            marker, natoms, after = struct.unpack(end + "3i", head[pos: pos + 12])
-            if marker != 4 or after != 4 or natoms < 1:
-                return None
-            pos += 12
-            if ic[8] != 0 or ic[11] != 0:  # fixed atoms (first frame differs) or 4-D
-                return None
-            return _DCDLayout(end, pos, natoms, bool(ic[10] and ic[19]), ic[1],
-                              ic[2] or 1, size)
-    except (OSError, struct.error, IndexError):
-        return None
-    return None
-
-
-def _dcd_partial_tail(p: Path, n_frames: int, n_atoms: int) -> int | None:
-    """Bytes after the last whole frame of a DCD file (0 if it ends cleanly); None when its
-    layout is not the plain one (see :class:`_DCDLayout`) or does not match the reader's
-    frame and atom counts."""
-    lay = _dcd_layout(p)
-    if lay is None or lay.n_atoms != n_atoms:
-        return None
-    whole, tail = lay.whole_frames()
-    return tail if whole == n_frames else None
-
-
-def _dcd_dimensions(cells: np.ndarray) -> np.ndarray | None:
-    """MDAnalysis's box dimensions (B, 6) from raw DCD unit cells (B, 6), or None.
-
-    The raw record is ``[A, cos gamma, B, cos beta, cos alpha, C]`` (angles as cosines,
-    CHARMM and NAMD > 2.5) or with angles in degrees (NAMD 2.5); the box-matrix form of
-    newer CHARMM versions gives None (the caller then reads frame by frame). This follows
-    the conversion MDAnalysis applies to each frame it reads; the caller checks the result
-    against MDAnalysis's own frames.
-    """
-    uc = cells[:, [0, 2, 5, 4, 3, 1]].astype(np.float64)
-    ang = uc[:, 3:]
-    cosines = np.all((ang >= -1.0) & (ang <= 1.0), axis=1)
-    degrees = ~cosines & ~np.any((uc < 0.0) | np.c_[np.zeros((uc.shape[0], 3), bool),
-                                                     ang > 180.0], axis=1)
-    if not np.all(cosines | degrees):
-        return None
-    ang[cosines] = 90.0 - np.arcsin(ang[cosines]) * 90.0 / (np.pi / 2)
-    # MDAnalysis keeps dimensions in float32: rounded the same way, the series does not
-    # depend on which reader took the frames
-    return uc.astype(np.float32).astype(np.float64)
-
-
-class _DCDFrames:
-    """Reads blocks of frames of a plain DCD file straight into the reader's buffers.
-
-    MDAnalysis turns a DCD frame into its Timestep one at a time (~40 us per frame of
-    1,000 atoms, more than the file read); here a block of frames is one read and one
-    vectorised copy. Used only after :meth:`matches` has compared the first and last
-    frames (positions, box, time) with MDAnalysis's reader of the same file.
-    """
-
-    def __init__(self, path: Path, lay: _DCDLayout, n_frames: int,
-                 time_of: Any) -> None:
-        self.path = path
-        self.lay = lay
-        self.n_frames = n_frames
-        self.time_of = time_of  # frame index (array) -> time in the file's unit (ps)
-        self._dtype = lay.frame_dtype
-        self._fh = open(path, "rb")  # closed by close()
-        self._buf = bytearray()
-
-    def close(self) -> None:
-        self._fh.close()
-
-    def read(self, first: int, count: int) -> tuple[np.ndarray, np.ndarray | None]:
-        """Frames ``first .. first+count-1``: structured records and their box dimensions
-        (None without unit cells)."""
-        nbytes = count * self._dtype.itemsize
-        if len(self._buf) < nbytes:
-            self._buf = bytearray(nbytes)
-        self._fh.seek(self.lay.header + first * self._dtype.itemsize)
-        view = memoryview(self._buf)[:nbytes]
-        got = self._fh.readinto(view)
-        if got != nbytes:
-            raise InputError(
-                f"the DCD file ended while frame {first + got // self._dtype.itemsize} was "
-                "read (it changed while being read?)",
-                path=str(self.path), fix="read the file once the run has finished")
-        rec = np.frombuffer(self._buf, dtype=self._dtype, count=count)
-        n4 = 4 * self.lay.n_atoms
-        checks = [(ax + m, n4) for ax in "xyz" for m in "01"]
-        if self.lay.cell:
-            checks += [("c0", 48), ("c1", 48)]
-        for field, want in checks:
-            bad = rec[field] != want
-            if bad.any():
-                k = first + int(np.argmax(bad))
-                raise InputError(
-                    f"DCD frame {k} is damaged: a record length reads "
-                    f"{int(rec[field][k - first])}, expected {want} (byte "
-                    f"{self.lay.header + k * self._dtype.itemsize})",
-                    path=str(self.path), expected="the fixed frame layout of the header",
-                    fix="truncate the file before the damaged frame")
-        dims = None
-        if self.lay.cell:
-            cells = rec["cell"]
-            if np.all(cells == cells[0]):  # a constant box: convert one cell
-                dims = _dcd_dimensions(cells[:1])
-                dims = None if dims is None else np.repeat(dims, count, axis=0)
-            else:
-                dims = _dcd_dimensions(cells)
-            if dims is None:
-                raise InputError("DCD unit cells change form within the file",
-                                 path=str(self.path), fix="report this file")
-        return rec, dims
-
-    def positions_into(self, rec: np.ndarray, out: np.ndarray) -> None:
-        """Interleave the x, y, z records into `out` (B, n_atoms, 3) float32."""
-        for i, ax in enumerate("xyz"):
-            out[:, :, i] = rec[ax]
-
-    def matches(self, u: Any) -> bool:
-        """True if the first and last frames read here equal MDAnalysis's (positions
-        exactly, box to 1e-6 relative, times to 1e-9 relative)."""
-        if self.n_frames < 1:
-            return False
-        for i in sorted({0, self.n_frames - 1}):
-            ts = u.trajectory[i]
-            rec, dims = self.read(i, 1)
-            x = np.empty((1, self.lay.n_atoms, 3), dtype=np.float32)
-            self.positions_into(rec, x)
-            if not np.array_equal(x[0], ts.positions):
-                return False
-            theirs = ts.dimensions
-            if (theirs is None) != (dims is None):
-                return False
-            if dims is not None and not np.allclose(dims[0], theirs, rtol=1e-6, atol=1e-6):
-                return False
-            if not math.isclose(self.time_of(i), ts.time, rel_tol=1e-9, abs_tol=1e-12):
-                return False
-        return True
-
-
 def _dump_info(p: Path) -> _DumpInfo | None:
     """Columns of a LAMMPS dump (None if `p` is not a dump)."""
     head = _head(p)
@@ -925,11 +735,6 @@ def _dump_info(p: Path) -> _DumpInfo | None:
                          fix="add id to the dump custom columns")
     return _DumpInfo(conv, unwrapped, {"ix", "iy", "iz"} <= have,
                      {"vx", "vy", "vz"} <= have)
-
-
-def _mda_error(exc: BaseException) -> str:
-    text = " ".join(str(exc).split())
-    return text[:300] if text else type(exc).__name__
 
 
 def _ignore_unraisable(_: Any) -> None:
@@ -1476,283 +1281,6 @@ class _BlockBuffers:
         self.box = np.full((size, 6), np.nan)
         self.img = np.empty((size, n_atoms, 3)) if images else None
         self.v: np.ndarray | None = None
-
-
-#: XTC/TRR files with fewer frames or coordinates than these are decoded in one process.
-_FORK_MIN_FRAMES = 200
-_FORK_MIN_VALUES = 1 << 20
-#: Share of the frames this process decodes itself when a forked child takes the rest.
-_FORK_OWN_SHARE = 0.4
-#: Setting this environment variable (to anything) turns the forked decoding off.
-NO_FORK_ENV = "TRANSPORT_NO_FORK"
-
-
-def _shared(shape: tuple[int, ...], dtype: Any) -> np.ndarray:
-    """A zero-filled array in anonymous shared memory (visible to forked children)."""
-    dt = np.dtype(dtype)
-    count = int(np.prod(shape, dtype=np.int64))
-    buf = mmap.mmap(-1, max(1, count * dt.itemsize))  # anonymous maps are shared
-    return np.frombuffer(buf, dtype=dt, count=count).reshape(shape)
-
-
-class _ForkedFrames:
-    """Frames ``start .. stop-1`` of an XTC or TRR file, decoded by a forked process.
-
-    MDAnalysis's XDR decoder holds the GIL, so threads cannot share its work (measured: a
-    numpy thread beside it gained nothing). A child process, forked with the reader's
-    modules and the file's offset index already loaded, decodes the second part of the file
-    into shared memory while this process decodes and processes the first. The child only
-    reads the file and writes the shared arrays, then leaves with ``os._exit``; if it fails
-    in any way, :meth:`wait` says so and the caller reads those frames itself.
-    """
-
-    def __init__(self, reader_type: Any, path: Path, reader_kw: dict[str, Any], start: int,
-                 stop: int, n_atoms: int, velocities: bool) -> None:
-        m = stop - start
-        self.start, self.count = start, m
-        self.x = _shared((m, n_atoms, 3), np.float32)
-        self.t = _shared((m,), np.float64)
-        self.step = _shared((m,), np.float64)
-        self.box = _shared((m, 6), np.float64)
-        self.v = _shared((m, n_atoms, 3), np.float32) if velocities else None
-        self._done = _shared((1,), np.int64)
-        with _warnings.catch_warnings():
-            _warnings.simplefilter("ignore")  # Python >= 3.12 warns on fork with threads
-            self.pid = os.fork()
-        if self.pid == 0:  # the child: decode, then leave without running any cleanup
-            code = 1
-            try:
-                self._decode(reader_type, path, reader_kw)
-                self._done[0] = 1
-                code = 0
-            finally:
-                os._exit(code)
-
-    def _decode(self, reader_type: Any, path: Path, reader_kw: dict[str, Any]) -> None:
-        with _warnings.catch_warnings():
-            _warnings.simplefilter("ignore")
-            reader = reader_type(str(path), **reader_kw)
-            got = 0
-            ts = reader[self.start]  # one seek, then frame after frame (slices seek each)
-            for i in range(self.count):
-                if i:
-                    ts = reader.next()
-                self.x[i] = ts.positions
-                self.t[i] = ts.time
-                step = ts.data.get("step")
-                self.step[i] = np.nan if step is None else step
-                dims = ts.dimensions
-                self.box[i] = np.nan if dims is None else dims
-                if self.v is not None:
-                    self.v[i] = ts.velocities  # raises where a frame has none
-                got = i + 1
-            if got != self.count:
-                raise RuntimeError("fewer frames than announced")
-
-    def wait(self, path: Path) -> bool:
-        """Wait for the child; True if it decoded every frame, False if it failed.
-
-        Raises
-        ------
-        InputError
-            The child was killed by a signal (a crash of the compiled decoder: decoding the
-            same frames here would crash this process too).
-        """
-        _, status = os.waitpid(self.pid, 0)
-        if os.WIFSIGNALED(status):
-            raise InputError(
-                f"the process decoding frames {self.start}-{self.start + self.count - 1} "
-                f"ended on signal {os.WTERMSIG(status)}: MDAnalysis's decoder crashed (the "
-                "file is damaged there) or the system stopped it (out of memory?)",
-                path=str(path), expected="frames MDAnalysis can decode",
-                fix=f"check the file from frame {self.start} on (repair or truncate it); "
-                    f"if memory is short, set {NO_FORK_ENV}=1 (one process, no shared copy)")
-        return (os.WIFEXITED(status) and os.WEXITSTATUS(status) == 0
-                and int(self._done[0]) == 1)
-
-    def stop(self) -> None:
-        """End the child early (the reading failed here) and reap it."""
-        with contextlib.suppress(OSError):
-            os.kill(self.pid, signal.SIGKILL)
-        with contextlib.suppress(OSError):
-            os.waitpid(self.pid, 0)
-
-
-def _fork_split(u: Any, n_atoms: int, velocities: bool, memory_limit: float) -> int | None:
-    """The first frame to leave to a forked decoder (:class:`_ForkedFrames`), or None.
-
-    Only for XTC and TRR files (whose frames MDAnalysis finds by offset), on Linux with two
-    or more CPUs, for files big enough to be worth a process (>= 200 frames and >= 2^20
-    coordinates) and when the shared copy fits a quarter of the memory limit. Setting the
-    environment variable ``TRANSPORT_NO_FORK`` turns it off.
-    """
-    if (not sys.platform.startswith("linux") or not hasattr(os, "fork")
-            or os.environ.get(NO_FORK_ENV) or available_cpus() < 2
-            or type(u.trajectory).__name__ not in ("XTCReader", "TRRReader")):
-        return None
-    n = len(u.trajectory)
-    values = n * n_atoms * 3
-    if n < _FORK_MIN_FRAMES or values < _FORK_MIN_VALUES:
-        return None
-    if 2 * values * 4 * (2 if velocities else 1) > memory_limit / 4:
-        return None
-    # This process decodes its share *and* processes every frame, the child only decodes:
-    # with processing ~0.45 of the decoding time (XTC, measured), both finish together
-    # when this process keeps ~40% of the frames.
-    return max(1, int(_FORK_OWN_SHARE * n))
-
-
-@contextlib.contextmanager
-def _c_stderr_held(enabled: bool) -> Any:
-    """Hold what compiled readers print on file descriptor 2 while frames are read.
-
-    The XTC decoder prints e.g. "Cannot allocate memory for decompressing coordinates." on a
-    damaged frame before MDAnalysis raises; an input error must reach the user as one line.
-    The text is kept in a temporary file and written out after a successful read (nothing
-    is lost), dropped when the read fails with an :class:`InputError`. Off while a progress
-    bar is shown (it writes to the same descriptor).
-    """
-    if not enabled:
-        yield
-        return
-    try:
-        saved = os.dup(2)
-    except OSError:
-        yield
-        return
-    with tempfile.TemporaryFile() as held:
-        sys.stderr.flush()
-        os.dup2(held.fileno(), 2)
-        failed_on_input = False
-        try:
-            yield
-        except InputError:
-            failed_on_input = True
-            raise
-        finally:
-            sys.stderr.flush()
-            os.dup2(saved, 2)
-            os.close(saved)
-            if not failed_on_input:
-                held.seek(0)
-                text = held.read().decode("utf-8", "replace")
-                if text:
-                    sys.stderr.write(text)
-
-
-def _frames(trajectory: Any, first: int, n_file: int, p: Path) -> Any:
-    """Yield ``(index, Timestep)`` from an MDAnalysis trajectory iterator; an error while
-    MDAnalysis decodes a frame becomes an :class:`InputError` naming the frame."""
-    it = iter(trajectory)
-    i = first
-    while True:
-        try:
-            ts = next(it)
-        except StopIteration:
-            return
-        except Exception as exc:
-            raise InputError(
-                f"frame {i} of {n_file} cannot be read ({_mda_error(exc)})", path=str(p),
-                expected="frames MDAnalysis can decode",
-                fix=f"repair the file, or truncate it before frame {i}") from None
-        yield i, ts
-        i += 1
-
-
-def _xtc_frame_bytes(p: Path, offset: int) -> int | None:
-    """Size of the compressed XTC frame starting at `offset`, from its header, or None.
-
-    Layout (the GROMACS xdrfile format, big-endian, from memory): magic 1995, atom count,
-    step, time, box (9 floats), atom count again, then for more than 9 atoms the precision,
-    minimum and maximum integers (3 + 3), the small index and the byte count of the
-    compressed coordinates, which follow padded to 4 bytes: 92 bytes of header in all.
-    """
-    try:
-        with open(p, "rb") as fh:
-            fh.seek(offset)
-            head = fh.read(92)
-        if len(head) < 92:
-            return None
-        magic, natoms = struct.unpack(">2i", head[:8])
-        if magic != 1995 or natoms <= 9 or struct.unpack(">i", head[52:56])[0] != natoms:
-            return None
-        nbytes = struct.unpack(">i", head[88:92])[0]
-        return 92 + (nbytes + 3) // 4 * 4 if nbytes >= 0 else None
-    except (OSError, struct.error):
-        return None
-
-
-def _unread_tail(u: Any, p: Path, n_file: int) -> str | None:
-    """A note when data follow the last frame MDAnalysis indexed in an XTC/TRR file or an
-    uncompressed LAMMPS dump (a partial last frame); InputError when whole frames do (the
-    file is damaged there and MDAnalysis's index stopped early). None otherwise, and when
-    it cannot be told (MDAnalysis's XDR frame index is a private attribute: without it no
-    check is made)."""
-    name = type(u.trajectory).__name__
-    size = p.stat().st_size
-    damaged = dict(path=str(p), expected="frames up to the end of the file")
-    if name in ("XTCReader", "TRRReader") and n_file >= 2:
-        try:
-            offsets = np.asarray(u.trajectory._xdr.offsets, dtype=np.int64)
-        except Exception:
-            return None
-        if offsets.size != n_file:
-            return None
-        steps = np.diff(offsets)
-        mean = float(steps.mean())
-        last = _xtc_frame_bytes(p, int(offsets[-1])) if name == "XTCReader" else None
-        fixed = last is not None or bool(steps.min() == steps.max())  # TRR: equal frames
-        # the bytes beyond a last frame of its own size (XTC header) or of the usual size
-        extra = float(size - offsets[-1]) - (mean if last is None else last)
-        whole = extra >= mean if fixed else extra > 1.5 * mean
-        if whole:
-            raise InputError(
-                f"about {extra:.0f} bytes (~{extra / mean:.0f} frames) follow frame "
-                f"{n_file - 1}, the last one MDAnalysis can find: the file is damaged there",
-                fix=f"repair the file, or truncate it after frame {n_file - 1}", **damaged)
-        if (fixed and extra > 0) or (not fixed and extra > 0.5 * mean):
-            return (f"{p}: the file ends {'' if fixed else 'about '}{extra:.0f} bytes into a "
-                    f"frame after frame {n_file - 1} (the run probably stopped while writing "
-                    "it); that partial frame was not read")
-        return None
-    if name == "DumpReader" and compression_of(p) is None:
-        with open(p, "rb") as fh, mmap.mmap(fh.fileno(), 0, access=mmap.ACCESS_READ) as mm:
-            found = 0
-            at = mm.find(b"ITEM: TIMESTEP")
-            while at >= 0:
-                found += 1
-                at = mm.find(b"ITEM: TIMESTEP", at + 14)
-        if found > n_file + 1:
-            raise InputError(
-                f"the dump has {found} frames but only the first {n_file} can be read: frame "
-                f"{n_file} is damaged", fix=f"repair the file, or truncate it before frame "
-                f"{n_file}", **damaged)
-        if found == n_file + 1:
-            return (f"{p}: the last frame ({n_file}) is incomplete (the run probably stopped "
-                    "while writing it) and was not read")
-    return None
-
-
-def _bulk_dcd(u: Any, p: Path) -> _DCDFrames | None:
-    """A :class:`_DCDFrames` for the DCD file loaded in `u`, or None (read frame by frame)
-    when the file is not a plain DCD or its first and last frames differ from MDAnalysis's.
-    """
-    if type(u.trajectory).__name__ != "DCDReader" or p.suffix.lower() != ".dcd":
-        return None
-    lay = _dcd_layout(p)
-    n = len(u.trajectory)
-    if lay is None or lay.n_atoms != u.atoms.n_atoms or lay.whole_frames()[0] != n:
-        return None
-    dt = float(u.trajectory.dt)
-    frames = _DCDFrames(p, lay, n, lambda i: (i + lay.istart / lay.nsavc) * dt)
-    try:
-        ok = frames.matches(u)
-    except InputError:
-        ok = False  # let MDAnalysis's reader meet (and report) the problem
-    if not ok:
-        frames.close()
-        return None
-    return frames
 
 
 class _NoBar:
