@@ -37,7 +37,11 @@ def free_huge_bytes() -> int | None:
             text = fh.read()
     except OSError:
         return None
-    page = mmap.PAGESIZE
+    return _free_huge_in(text, mmap.PAGESIZE)
+
+
+def _free_huge_in(text: str, page: int) -> int | None:
+    """Bytes in free blocks of at least 2 MB listed in a ``/proc/buddyinfo`` text."""
     total = 0
     try:
         for line in text.splitlines():
