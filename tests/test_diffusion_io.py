@@ -611,6 +611,44 @@ def test_compiled_reader_messages_are_held_back_on_input_errors(capfd):
     assert capfd.readouterr().err == "shown at once\n"
 
 
+def test_trr_with_velocities_in_some_frames_only(tmp_path):
+    # GROMACS writes velocities every nstvout steps, positions every nstxout: a TRR may have
+    # velocities in some frames only. The VACF needs every frame: that is an input error,
+    # and the command reads positions only with --vacf no and a given temperature.
+    from MDAnalysis.coordinates.memory import MemoryReader
+
+    rng = np.random.default_rng(48)
+    n, n_frames = 12, 60
+    x = brownian_positions(n_frames, n, 1.0, D_A2PS, 20.0, rng).astype(np.float32)
+    v = rng.normal(size=(n_frames, n, 3)).astype(np.float32)
+    dims = np.tile([20.0, 20.0, 20.0, 90.0, 90.0, 90.0], (30, 1))
+    top = tmp_path / "top.pdb"
+    traj = tmp_path / "mixed.trr"
+    with _quiet_mda():
+        warnings.simplefilter("ignore")
+        u = mda.Universe.empty(n, n_residues=n, atom_resindex=np.arange(n), trajectory=True)
+        for name, val in (("names", ["C"] * n), ("types", ["C"] * n),
+                          ("resnames", ["LIQ"] * n), ("resids", np.arange(1, n + 1))):
+            u.add_TopologyAttr(name, val)
+        u.load_new(x[:1], format=MemoryReader, dimensions=dims[:1])
+        u.atoms.write(str(top))
+        with mda.Writer(str(traj), n) as w:
+            u.load_new(x[:30], format=MemoryReader, velocities=v[:30], dt=1.0,
+                       dimensions=dims)
+            for _ in u.trajectory:
+                w.write(u.atoms)
+            u.load_new(x[30:], format=MemoryReader, dt=1.0, dimensions=dims)
+            for _ in u.trajectory:
+                w.write(u.atoms)
+    with pytest.raises(InputError, match="frame 30 has no velocities"):
+        load_trajectory(top, traj, frame_interval=1.0)
+    s = load_trajectory(top, traj, frame_interval=1.0, velocities=False)[0]
+    assert s.n_frames == n_frames and s.velocities is None
+    r = CliRunner().invoke(main, ["-q", "diffusion", str(top), str(traj), "--frame-interval",
+                                  "1", "--vacf", "no", "--temperature", "300"])
+    assert r.exit_code == 0, r.output
+
+
 @pytest.mark.parametrize("forked", [False, True], ids=["one-process", "forked"])
 def test_trr_velocities_and_kinetic_temperature(tmp_path, monkeypatch, forked):
     # TRR with positions and velocities (written by MDAnalysis, Angstrom/ps in memory), read

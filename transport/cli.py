@@ -758,6 +758,8 @@ def diffusion(ctx: click.Context, topology: str, trajectories: tuple[str, ...], 
         unwrap=unwrap, units=units, timestep=timestep,  # type: ignore[arg-type]
         frame_interval=frame_interval, skip=skip_t / ts, temperature=temperature,
         continuation=continuation, scratch_dir=scratch,
+        # velocities serve the VACF and, without --temperature, the kinetic temperature
+        velocities=vacf != "no" or temperature is None,
         progress=want_progress(_quiet(ctx)),
     )
     result = analyse_diffusion(series, fit_window=window,  # type: ignore[arg-type]

@@ -1406,7 +1406,10 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
 
     def take(ts: Any, p: Path, kind: str) -> None:
         """Copy one MDAnalysis frame into the block buffers (processing full blocks)."""
-        nonlocal fill
+        nonlocal fill, no_positions
+        if not ts.has_positions:  # a TRR frame of velocities or forces only
+            no_positions += 1
+            return
         bb.x[fill] = ts.positions
         if kind == "time":
             bb.t[fill] = ts.time
@@ -1427,6 +1430,12 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
             bb.img[fill, :, 1] = ts.data["iy"]
             bb.img[fill, :, 2] = ts.data["iz"]
         if bb.v is not None:
+            if not ts.has_velocities:
+                raise InputError(
+                    f"frame {ts.frame} has no velocities, and earlier frames do",
+                    path=str(p), expected="velocities in every frame or in none",
+                    fix="read positions only: --vacf no with --temperature (or "
+                        "velocities=False)")
             bb.v[fill] = ts.velocities
         fill += 1
         if fill == block_size:
@@ -1456,6 +1465,7 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
             flush()
 
     file_notes: list[str] = []
+    no_positions = 0
     bar = _progress(progress, sum(lengths))
     with bar, _c_stderr_held(not progress):
         for k, (p, dump) in enumerate(zip(paths, dumps, strict=True)):
@@ -1546,6 +1556,9 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
     if duplicates:
         warn.append(f"{duplicates} frame(s) repeated at the boundary between parts were "
                     "read once")
+    if no_positions:
+        warn.append(f"{no_positions} frame(s) without positions (velocities or forces "
+                    "only) were skipped")
     if mode == "none" and proc.stats.raw_jumps > 0:
         warn.append(
             f"{proc.stats.raw_jumps} coordinate jump(s) of more than half a box between "
