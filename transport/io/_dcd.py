@@ -145,6 +145,7 @@ class _DCDFrames:
         self._dtype = lay.frame_dtype
         self._fh = open(path, "rb")  # closed by close()
         self._buf = bytearray()
+        self._cell: tuple[np.ndarray, np.ndarray | None] | None = None  # last raw cell
 
     def close(self) -> None:
         self._fh.close()
@@ -181,9 +182,11 @@ class _DCDFrames:
         dims = None
         if self.lay.cell:
             cells = rec["cell"]
-            if np.all(cells == cells[0]):  # a constant box: convert one cell
-                dims = _dcd_dimensions(cells[:1])
-                dims = None if dims is None else np.repeat(dims, count, axis=0)
+            if np.all(cells == cells[0]):  # a constant box: convert one cell, once
+                if self._cell is None or not np.array_equal(cells[0], self._cell[0]):
+                    self._cell = (cells[0].copy(), _dcd_dimensions(cells[:1]))
+                one = self._cell[1]
+                dims = None if one is None else np.broadcast_to(one, (count, 6))
             else:
                 dims = _dcd_dimensions(cells)
             if dims is None:
