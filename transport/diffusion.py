@@ -681,16 +681,26 @@ def _length_unit(reduced: bool) -> tuple[str, float]:
 def _common_diag(slist: list[PositionSeries], name: str, remove_drift: bool) -> dict:
     u = slist[0].units
     lu, lf = _length_unit(u.reduced)
-    counts, boxes, fluct, drift = [], [], [], []
+    counts, boxes, fluct, drift, angles = [], [], [], [], []
     for s in slist:
         if name in s.species_names:
             counts.append(int(s.species_indices(name).size))
         if s.box is not None:
             boxes.append(s.box.mean(axis=0))
             fluct.append(float(np.max(s.box.std(axis=0) / s.box.mean(axis=0))))
+            angles.append(np.full(3, 90.0) if s.box_angles is None
+                          else s.box_angles.mean(axis=0))
         if s.drift is not None:
             drift.append(float(np.max(np.linalg.norm(s.drift, axis=1))))
     box = np.mean(boxes, axis=0) * lf if boxes else None
+    ang = np.mean(angles, axis=0) if angles else None
+    volume = None
+    if box is not None and ang is not None:
+        # triclinic cell volume abc sqrt(1 - sum cos^2 + 2 prod cos) (common practice)
+        c = np.cos(np.radians(ang))
+        volume = float(np.prod(box) * np.sqrt(max(
+            1.0 - float(np.sum(c * c)) + 2.0 * float(np.prod(c)), 0.0)))
+    tilted = ang is not None and bool(np.any(np.abs(ang - 90.0) > 1e-3))
     temps = [s.temperature for s in slist if s.temperature is not None]
     return {
         "n_particles": int(sum(counts)),
@@ -706,7 +716,8 @@ def _common_diag(slist: list[PositionSeries], name: str, remove_drift: bool) -> 
         "frame_interval": slist[0].dt * u.time_scale,
         "time_unit": u.time_unit,
         "box_lengths": None if box is None else [float(b) for b in box],
-        "box_volume": None if box is None else float(np.prod(box)),
+        "box_angles": [float(a) for a in ang] if tilted else None,
+        "box_volume": volume,
         "length_unit": lu,
         "box_fluctuation": max(fluct) if fluct else None,
         "temperature": float(np.mean(temps)) if temps else None,

@@ -122,6 +122,9 @@ class StressSeries:
         Time of the first sample, in s (or tau).
     warnings : tuple of str
         What the reader noticed and the user must know.
+    box_angles : ndarray, shape (n_frames, 3), or None
+        Angles alpha, beta, gamma of a triclinic box per frame, in degrees; None for an
+        orthorhombic box.
     """
 
     pressure: np.ndarray
@@ -133,6 +136,7 @@ class StressSeries:
     temperature_source: str = ""
     t0: float = 0.0
     warnings: tuple[str, ...] = ()
+    box_angles: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         from .errors import InputError
@@ -242,8 +246,9 @@ class PositionSeries:
     dt : float
         Time between frames, in s (or reduced tau).
     box : ndarray, shape (n_frames, 3), or None
-        Orthorhombic box lengths per frame, in m (or sigma); None if the trajectory has no
-        periodic box (only with coordinates that need no unwrapping).
+        Box edge lengths per frame, in m (or sigma): an orthorhombic box unless
+        `box_angles` is given; None if the trajectory has no periodic box (only with
+        coordinates that need no unwrapping).
     species : ndarray of int, shape (n_particles,)
         Index into `species_names` of each particle.
     species_names : tuple of str
@@ -281,6 +286,9 @@ class PositionSeries:
         Time of the first frame, in s (or tau).
     warnings : tuple of str
         What the reader noticed and the user must know.
+    box_angles : ndarray, shape (n_frames, 3), or None
+        Angles alpha, beta, gamma of a triclinic box per frame, in degrees; None for an
+        orthorhombic box.
     """
 
     positions: np.ndarray
@@ -303,6 +311,7 @@ class PositionSeries:
     sources: tuple[Source, ...] = ()
     t0: float = 0.0
     warnings: tuple[str, ...] = ()
+    box_angles: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         from .errors import InputError
@@ -371,12 +380,19 @@ class PositionSeries:
         app = (np.ones(n_part, dtype=np.intp) if app is None
                else np.ascontiguousarray(np.broadcast_to(np.asarray(app, dtype=np.intp),
                                                          (n_part,))))
-        for a in (box, species, masses, app):
+        angles = self.box_angles
+        if angles is not None:
+            angles = np.ascontiguousarray(np.broadcast_to(
+                np.asarray(angles, dtype=np.float64), (n_frames, 3)))
+            if box is None or not np.all((angles > 0) & (angles < 180)):
+                raise ValueError("box_angles need a box and must lie in (0, 180) degrees")
+        for a in (box, angles, species, masses, app):
             if a is not None:
                 a.flags.writeable = False
         object.__setattr__(self, "positions", _read_only(p))
         object.__setattr__(self, "velocities", None if v is None else _read_only(v))
         object.__setattr__(self, "box", box)
+        object.__setattr__(self, "box_angles", angles)
         object.__setattr__(self, "species", species)
         object.__setattr__(self, "species_names", names)
         object.__setattr__(self, "masses", masses)

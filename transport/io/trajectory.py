@@ -24,6 +24,11 @@ length would be assigned to the wrong image. When the root-mean-square per-frame
 of a coordinate exceeds a twelfth of the shortest box length (so that half a box is six
 standard deviations away), the reader refuses with :class:`~transport.errors.InputError`.
 
+Triclinic boxes (cell vectors ``H``, rows a, b, c) use scheme 3 in lattice coordinates:
+``d - round(d H(t+1)^-1) H(t+1)``, exact for steps much shorter than the cell heights (the
+spacing check then uses the smallest height); image flags are not supported for them. The
+series records the box angles (``PositionSeries.box_angles``).
+
 Coordinates of unknown kind (DCD, XTC, TRR, ...) are unwrapped by scheme 3; if no coordinate
 ever jumps by more than half a box and the box is constant, the result equals the coordinates
 as stored (they were continuous already) and no spacing check is needed.
@@ -239,6 +244,8 @@ class _FrameProcessor:
         self._box0: np.ndarray | None = None
         self._last_box: np.ndarray | None = None
         self._half_tile: np.ndarray | None = None  # L0/2 tiled over atoms (n, 3)
+        self._cell0: np.ndarray | None = None  # triclinic: first cell (3, 3), rows a, b, c
+        self._last_cell: np.ndarray | None = None
         self._off: np.ndarray | None = None  # constant box: u - x of the last frame
         self._identity = particles.is_identity(atom_masses.size)
         self._work_arrays: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
@@ -264,12 +271,15 @@ class _FrameProcessor:
             self.stats.min_box = min(self.stats.min_box, float(box.min()))
         return u
 
-    def unwrap(self, x: np.ndarray, box: np.ndarray | None, images: np.ndarray | None
-               ) -> np.ndarray:
+    def unwrap(self, x: np.ndarray, box: np.ndarray | None, images: np.ndarray | None,
+               cells: np.ndarray | None = None) -> np.ndarray:
         """Continuous coordinates (B, n, 3) of a block of raw frames x (B, n, 3).
 
-        The result may be `x` itself (no unwrapping needed) or a new array.
+        `cells` (B, 3, 3), rows the box vectors, is given for triclinic boxes. The result
+        may be `x` itself (no unwrapping needed) or a new array.
         """
+        if cells is not None:
+            return self._unwrap_cells(x, cells)
         if self._u is None:
             first = self._first(x[0], None if box is None else box[0],
                                 None if images is None else images[0])
@@ -307,6 +317,62 @@ class _FrameProcessor:
         if box is not None:
             self._last_box = box[-1].copy()
         self._u, self._x = u[-1].copy(), x[-1].copy()
+        self.check()
+        return u
+
+    def _unwrap_cells(self, x: np.ndarray, cells: np.ndarray) -> np.ndarray:
+        """Triclinic boxes: minimum-image steps in lattice coordinates.
+
+        A step ``d`` is reduced by the lattice vector ``round(d H^-1) H`` of the later frame's
+        cell ``H`` (rows a, b, c); for steps much shorter than the cell heights (the spacing
+        check) that is the step's own image in any cell shape. Once the cell changes, each
+        frame is first wrapped into its own cell, as for orthorhombic boxes [1]_.
+        """
+        st = self.stats
+        if self.mode == "images":
+            raise InputError(
+                "unwrapping by image flags is not supported for a triclinic box",
+                path=self.path, expected="an orthorhombic box for image flags",
+                fix="use --unwrap displacement (minimum-image steps)")
+        self._off = None
+        heights = _cell_heights(cells)
+        if self._u is None:
+            st.frames += 1
+            st.min_box = min(st.min_box, float(heights[0].min()))
+            self._u = x[0].astype(np.float64)
+            self._x = x[0].copy()
+            self._cell0 = cells[0].copy()
+            self._last_cell = cells[0].copy()
+            first = self._u.copy()
+            if x.shape[0] == 1:
+                return first[None]
+            return np.concatenate([first[None], self._unwrap_cells(x[1:], cells[1:])])
+        st.min_box = min(st.min_box, float(heights.min()))
+        scale = float(np.abs(self._cell0).max())
+        if not st.box_changed and np.any(np.abs(cells - self._cell0) > _BOX_RTOL * scale):
+            st.box_changed = True
+            if self.mode == "unwrapped":  # built with the current box: re-derive them
+                self.mode = "displacement"
+                st.switched_at = st.frames
+        st.frames += x.shape[0]
+        xs = np.concatenate([self._x[None], x]).astype(np.float64)
+        if st.box_changed:
+            cs = np.concatenate([self._last_cell[None], cells])
+            frac = np.einsum("bnj,bjk->bnk", xs, np.linalg.inv(cs))
+            xs = np.einsum("bnk,bkj->bnj", frac - np.floor(frac), cs)
+        d = np.diff(xs, axis=0)
+        k = np.rint(np.einsum("bnj,bjk->bnk", d, np.linalg.inv(cells)))
+        st.raw_jumps += int(np.count_nonzero(k))
+        self._last_cell = cells[-1].copy()
+        self._x = x[-1].copy()
+        if self.mode in ("none", "unwrapped"):
+            self._u = x[-1].astype(np.float64)
+            return x
+        d -= np.einsum("bnk,bkj->bnj", k, cells)
+        st.sum_d2 += float(np.einsum("bij,bij->", d, d))
+        st.n_d += d.size
+        u = self._u + np.cumsum(d, axis=0)
+        self._u = u[-1].copy()
         self.check()
         return u
 
@@ -487,9 +553,10 @@ class _FrameProcessor:
 
     # -- a block: unwrap, centre of mass, particles ------------------------------------------
     def block(self, x: np.ndarray, box: np.ndarray | None, images: np.ndarray | None,
-              v: np.ndarray | None) -> dict[str, np.ndarray | None]:
+              v: np.ndarray | None, cells: np.ndarray | None = None
+              ) -> dict[str, np.ndarray | None]:
         """Particle positions/velocities, system COM and its velocity, 2 KE, for B frames."""
-        u = self.unwrap(x, box, images)
+        u = self.unwrap(x, box, images, cells)
         out: dict[str, np.ndarray | None] = {
             "pos": u if self._identity else self.particles.reduce(u),
             "com": np.matmul(self.masses, u) / self.mtot,
@@ -1100,11 +1167,40 @@ def _frame_clock(u: Any, dump: _DumpInfo | None, unit_sys: UnitSystem | None, re
     return _Clock("time", _PS, 0.0, 1.0, "times stored in the trajectory")
 
 
-def _block_boxes(dims: np.ndarray, need: bool, path: Path, first_frame: int
-                 ) -> np.ndarray | None:
-    """Orthorhombic box lengths (B, 3), file units, from MDAnalysis dimensions (B, 6).
+def _cell_vectors(dims: np.ndarray) -> np.ndarray:
+    """Box vectors (B, 3, 3), rows a, b, c, from lengths and angles (B, 6) in degrees.
 
-    Frames without a box have NaN rows. None when a frame has no box and none is needed.
+    The usual convention (a along x, b in the xy plane), as MDAnalysis's
+    ``triclinic_vectors`` builds them (checked against it in the tests).
+    """
+    a, b, c = dims[:, 0], dims[:, 1], dims[:, 2]
+    cos_al, cos_be, cos_ga = np.cos(np.radians(dims[:, 3:6])).T
+    sin_ga = np.sin(np.radians(dims[:, 5]))
+    h = np.zeros((dims.shape[0], 3, 3))
+    h[:, 0, 0] = a
+    h[:, 1, 0] = b * cos_ga
+    h[:, 1, 1] = b * sin_ga
+    h[:, 2, 0] = c * cos_be
+    h[:, 2, 1] = c * (cos_al - cos_be * cos_ga) / sin_ga
+    h[:, 2, 2] = np.sqrt(np.maximum(c * c - h[:, 2, 0] ** 2 - h[:, 2, 1] ** 2, 0.0))
+    return h
+
+
+def _cell_heights(cells: np.ndarray) -> np.ndarray:
+    """Distances between opposite faces of each cell (B, 3): volume over face area."""
+    a, b, c = cells[:, 0], cells[:, 1], cells[:, 2]
+    vol = np.abs(np.einsum("bi,bi->b", a, np.cross(b, c)))
+    faces = np.stack([np.cross(b, c), np.cross(c, a), np.cross(a, b)], axis=1)
+    return vol[:, None] / np.linalg.norm(faces, axis=2)
+
+
+def _block_boxes(dims: np.ndarray, need: bool, path: Path, first_frame: int
+                 ) -> tuple[np.ndarray | None, np.ndarray | None]:
+    """Box lengths (B, 3) and, for triclinic boxes, box vectors (B, 3, 3), in file units,
+    from MDAnalysis dimensions (B, 6).
+
+    (None, None) when a frame has no box and none is needed; cells only when unwrapping
+    needs them (`need`) and some frame's angles differ from 90 degrees.
     """
     ok = np.all(dims[:, :3] > 0, axis=1)  # False for NaN
     if not ok.all():
@@ -1115,17 +1211,12 @@ def _block_boxes(dims: np.ndarray, need: bool, path: Path, first_frame: int
                 fix="use a format that stores the box, or --unwrap none with unwrapped "
                     "coordinates",
             )
-        return None
-    if need:
-        tilted = np.any(np.abs(dims[:, 3:] - 90.0) > 1e-3, axis=1)
-        if tilted.any():
-            a = dims[int(np.argmax(tilted)), 3:]
-            raise InputError(
-                f"the box is triclinic (angles {a[0]:.4g}, {a[1]:.4g}, {a[2]:.4g})",
-                path=str(path), expected="an orthorhombic box for unwrapping",
-                fix="give unwrapped coordinates and use --unwrap none",
-            )
-    return dims[:, :3].copy()
+        return None, None
+    lengths = dims[:, :3].copy()
+    tilted = np.any(np.abs(dims[:, 3:] - 90.0) > 1e-3, axis=1)
+    if not (need and tilted.any()):
+        return lengths, None
+    return lengths, _cell_vectors(dims)
 
 
 def _put(dst: np.ndarray, src: np.ndarray, scale: float) -> None:
@@ -1158,6 +1249,7 @@ class _Collector:
         self.vcom: list[np.ndarray] = []
         self.twoke: list[np.ndarray] = []
         self.boxes: list[np.ndarray] = []
+        self.angles: list[np.ndarray] = []  # box angles (degrees) where the reader has them
         self.has_box = True
         self.last_time: float | None = None
 
@@ -1200,6 +1292,8 @@ class _Collector:
             self.has_box = False
         else:
             self.boxes.append(rec["box"][lo:])
+            if rec.get("angles") is not None:
+                self.angles.append(rec["angles"][lo:])
 
     def add(self, t: np.ndarray, rec: dict) -> None:
         """Add a block of B frames at times `t` (B,) with the processor's outputs `rec`."""
@@ -1237,6 +1331,15 @@ class _Collector:
         self.n_seen += b
         self.last_time = float(t[-1])
 
+    def _angles(self) -> np.ndarray | None:
+        """Box angles per frame, or None for orthorhombic boxes (or unknown angles)."""
+        if not self.has_box or not self.angles:
+            return None
+        ang = np.concatenate(self.angles)
+        if ang.shape[0] != sum(b.shape[0] for b in self.boxes):
+            return None
+        return ang if np.any(np.abs(ang - 90.0) > 1e-3) else None
+
     def finish(self) -> dict[str, Any]:
         if self.n_seen < 2 or self.store_p is None or self.dt is None:
             raise InputError(f"the trajectory has {self.n_seen} frame(s)", path=self.path,
@@ -1252,6 +1355,7 @@ class _Collector:
             "drift_velocity": np.concatenate(self.vcom) if self.vcom else None,
             "twoke": np.concatenate(self.twoke) if self.twoke else None,
             "box": np.concatenate(self.boxes) if self.has_box else None,
+            "box_angles": self._angles(),
             "dt": self.dt,
             "t0": self.t_first + self.k_skip * self.dt,
             "spilled": self.store_p.spilled,
@@ -1370,12 +1474,13 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
             t = (coll.frames_given + np.arange(b)) * clock.factor
         else:
             t = (clock.offset + bb.t[:b] * clock.scale) * clock.factor
-        boxes = _block_boxes(bb.box[:b], mode != "none", p, cur["frame0"])
+        boxes, cells = _block_boxes(bb.box[:b], mode != "none", p, cur["frame0"])
         rec = proc.block(x, boxes, None if bb.img is None else bb.img[:b],
-                         None if bb.v is None else bb.v[:b])
+                         None if bb.v is None else bb.v[:b], cells)
         # to internal units: positions and velocities as they are stored, the rest here
         rec.update(pos_scale=lf, vel_scale=vf, com=rec["com"] * lf,
-                   box=None if boxes is None else boxes * lf)
+                   box=None if boxes is None else boxes * lf,
+                   angles=None if boxes is None else bb.box[:b, 3:].copy())
         if rec["pv"] is not None:
             rec.update(vcom=rec["vcom"] * vf, twoke=rec["twoke"] * vf**2)
         coll.add(t, rec)
@@ -1589,6 +1694,7 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
     )
     return PositionSeries(
         positions=res["positions"], dt=res["dt"], box=res["box"],
+        box_angles=res["box_angles"],
         species=particles.species, species_names=particles.species_names,
         masses=particles.masses * mass_factor,
         units=unit_sys if unit_sys is not None else get_unit_system("si"),
