@@ -880,6 +880,22 @@ def _triclinic_run(rng, n_frames, n, cell_dims, steps_sd, scale=None):
     return w, true, dims
 
 
+def _unwrap_cells_in_blocks(w, dims, block):
+    """The reader's frame processor on float64 frames with triclinic cells, in blocks:
+    (continuous positions, raw jumps counted)."""
+    n_frames, n, _ = w.shape
+    proc = trajectory._FrameProcessor(
+        mode="displacement", explicit=False, atom_masses=np.ones(n),
+        particles=trajectory._Particles(np.arange(n), None, np.zeros(n, np.intp), ("a",),
+                                        np.ones(n), np.ones(n, np.intp)),
+        velocities=False, path=None)
+    cells = trajectory._cell_vectors(dims)
+    out = np.concatenate([proc.unwrap(w[a:a + block], dims[a:a + block, :3], None,
+                                      cells[a:a + block]).copy()
+                          for a in range(0, n_frames, block)])
+    return out, proc.stats.raw_jumps
+
+
 def test_triclinic_cell_unwrapped_like_mdanalysis_nojump(tmp_path):
     # Brownian motion wrapped into a rhombic dodecahedron (50 A, angles 60, 60, 90) and
     # written as XTC. References: the truth (float32 file rounding: 1e-3 A) and MDAnalysis's
@@ -915,6 +931,11 @@ def test_triclinic_cell_unwrapped_like_mdanalysis_nojump(tmp_path):
     assert e.diagnostics["box_angles"] == pytest.approx([60, 60, 90], abs=1e-3)
     # dodecahedron volume = a^3 / sqrt(2) (common geometry), in nm^3
     assert e.diagnostics["box_volume"] == pytest.approx(5.0**3 / np.sqrt(2), rel=1e-5)
+    # the same frames in float64, in blocks of 7 and 43 frames: the truth to rounding
+    for block in (7, 43):
+        exact, jumps = _unwrap_cells_in_blocks(w, dims, block)
+        np.testing.assert_allclose(exact - exact[0], true - true[0], rtol=0, atol=1e-9)
+        assert jumps > 0  # the particles did cross the cell faces
 
 
 def test_triclinic_cell_that_changes_size_follows_the_particles(tmp_path):
@@ -948,15 +969,7 @@ def test_triclinic_cell_that_changes_size_follows_the_particles(tmp_path):
     assert np.mean(err < 2e-2) > 0.99, np.mean(err < 2e-2)
     assert err.max() < 0.15, err.max()
     # the same frames in float64 (no rounding) are followed exactly
-    proc = trajectory._FrameProcessor(
-        mode="displacement", explicit=False, atom_masses=np.ones(n),
-        particles=trajectory._Particles(np.arange(n), None, np.zeros(n, np.intp), ("a",),
-                                        np.ones(n), np.ones(n, np.intp)),
-        velocities=False, path=None)
-    cells = trajectory._cell_vectors(dims)
-    exact = np.concatenate([proc.unwrap(w[a:a + 43], dims[a:a + 43, :3], None,
-                                        cells[a:a + 43]).copy()
-                            for a in range(0, n_frames, 43)])
+    exact, _ = _unwrap_cells_in_blocks(w, dims, 43)
     np.testing.assert_allclose(exact - exact[0], true - true[0], rtol=0, atol=1e-9)
 
 

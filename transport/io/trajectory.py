@@ -246,6 +246,7 @@ class _FrameProcessor:
         self._half_tile: np.ndarray | None = None  # L0/2 tiled over atoms (n, 3)
         self._cell0: np.ndarray | None = None  # triclinic: first cell (3, 3), rows a, b, c
         self._last_cell: np.ndarray | None = None
+        self._lattice: np.ndarray | None = None  # triclinic: steps in lattice coordinates
         self._off: np.ndarray | None = None  # constant box: u - x of the last frame
         self._identity = particles.is_identity(atom_masses.size)
         self._work_arrays: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
@@ -334,11 +335,11 @@ class _FrameProcessor:
                 "unwrapping by image flags is not supported for a triclinic box",
                 path=self.path, expected="an orthorhombic box for image flags",
                 fix="use --unwrap displacement (minimum-image steps)")
-        self._off = None
         heights = _cell_heights(cells)
         if self._u is None:
             st.frames += 1
             st.min_box = min(st.min_box, float(heights[0].min()))
+            self._off = None
             self._u = x[0].astype(np.float64)
             self._x = x[0].copy()
             self._cell0 = cells[0].copy()
@@ -355,25 +356,78 @@ class _FrameProcessor:
                 self.mode = "displacement"
                 st.switched_at = st.frames
         st.frames += x.shape[0]
-        xs = np.concatenate([self._x[None], x]).astype(np.float64)
-        if st.box_changed:
+        if not st.box_changed:
+            u = self._unwrap_fixed_cell(x)
+        else:
+            self._off = None  # the offsets follow from _u and _x if ever needed again
+            xs = np.concatenate([self._x[None], x]).astype(np.float64)
             cs = np.concatenate([self._last_cell[None], cells])
-            frac = np.einsum("bnj,bjk->bnk", xs, np.linalg.inv(cs))
-            xs = np.einsum("bnk,bkj->bnj", frac - np.floor(frac), cs)
-        d = np.diff(xs, axis=0)
-        k = np.rint(np.einsum("bnj,bjk->bnk", d, np.linalg.inv(cells)))
-        st.raw_jumps += int(np.count_nonzero(k))
+            frac = np.matmul(xs, np.linalg.inv(cs))
+            xs = np.matmul(frac - np.floor(frac), cs)
+            d = np.diff(xs, axis=0)
+            k = np.rint(np.matmul(d, np.linalg.inv(cells)))
+            st.raw_jumps += int(np.count_nonzero(k))
+            if self.mode in ("none", "unwrapped"):
+                u = x
+            else:
+                d -= np.matmul(k, cells)
+                st.sum_d2 += float(np.einsum("bij,bij->", d, d))
+                st.n_d += d.size
+                u = self._u + np.cumsum(d, axis=0)
         self._last_cell = cells[-1].copy()
         self._x = x[-1].copy()
+        self._u = u[-1].astype(np.float64)
+        self.check()
+        return u
+
+    def _unwrap_fixed_cell(self, x: np.ndarray) -> np.ndarray:
+        """A triclinic cell constant so far: per-atom offsets of whole lattice vectors that
+        change only at jumps, as :meth:`_unwrap_constant` does for orthorhombic boxes.
+
+        Steps are taken to lattice coordinates with one matrix product per block (BLAS);
+        an atom jumps where a lattice coordinate of its step exceeds 1/2, and gets
+        ``-round(step H^-1) H`` added from that frame on.
+        """
+        st = self.stats
+        b, n = x.shape[0], x.shape[1]
+        cell = self._cell0
+        # reused work arrays (fresh block-sized ones would be page-faulted in each time)
+        d, u, mask = self._work(x.shape, x.dtype)
+        full = self._work_arrays[0] if self._work_arrays is not None else d
+        if (self._lattice is None or self._lattice.shape != full.shape
+                or self._lattice.dtype != full.dtype):
+            self._lattice = np.empty_like(full)
+        q = self._lattice[:b]
+        np.subtract(x[1:], x[:-1], out=d[1:])
+        np.subtract(x[0], self._x, out=d[0])
+        np.matmul(d.reshape(-1, 3), np.linalg.inv(cell).astype(x.dtype),
+                  out=q.reshape(-1, 3))
+        np.abs(q, out=q)
+        # flat indices, not a reduction over the length-3 axis (several times slower)
+        jump_atoms = np.unique(np.flatnonzero(np.greater(q, 0.5, out=mask)) // 3)
+        st.raw_jumps += int(jump_atoms.size)
         if self.mode in ("none", "unwrapped"):
-            self._u = x[-1].astype(np.float64)
             return x
-        d -= np.einsum("bnk,bkj->bnj", k, cells)
+        if self._off is None:
+            self._off = self._u - self._x
+        np.add(x, self._off, out=u)
+        if jump_atoms.size:
+            frame, atom = np.divmod(jump_atoms, n)
+            before = np.where((frame == 0)[:, None], self._x[atom],
+                              x[np.maximum(frame - 1, 0), atom]).astype(np.float64)
+            step = x[frame, atom].astype(np.float64) - before
+            inc = -np.rint(step @ np.linalg.inv(cell)) @ cell  # (jumps, 3)
+            st.sum_d2 += float(np.sum((step + inc) ** 2 - step**2))
+            cols = (3 * atom[:, None] + np.arange(3)).ravel()
+            rows = np.repeat(frame, 3)
+            ucols, which = np.unique(cols, return_inverse=True)
+            grow = np.zeros((b, ucols.size))
+            np.add.at(grow, (rows, which), inc.ravel())
+            np.cumsum(grow, axis=0, out=grow)
+            u.reshape(b, -1)[:, ucols] += grow
+            self._off.reshape(-1)[ucols] += grow[-1]
         st.sum_d2 += float(np.einsum("bij,bij->", d, d))
         st.n_d += d.size
-        u = self._u + np.cumsum(d, axis=0)
-        self._u = u[-1].copy()
-        self.check()
         return u
 
     def _work(self, shape: tuple[int, ...], dtype: np.dtype
