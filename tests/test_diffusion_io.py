@@ -896,6 +896,43 @@ def _unwrap_cells_in_blocks(w, dims, block):
     return out, proc.stats.raw_jumps
 
 
+@pytest.mark.parametrize("rescaled", [False, True], ids=["fixed", "rescaled"])
+def test_triclinic_image_flags(rescaled):
+    # LAMMPS image flags in a triclinic cell: the unwrapped position is x + n H (rows of H
+    # the cell vectors a, b, c; LAMMPS dump documentation, from memory). Brownian particles
+    # are wrapped and their flags counted here; under a cell rescaled every frame the flags
+    # change at the crossings and u(t+1) = u(t) + dx + dn H(t+1) follows the physical
+    # trajectory (von Bülow et al. 2020), whereas x + n H(t) would not.
+    rng = np.random.default_rng(52)
+    n_frames, n = 200, 30
+    dims = np.tile([30.0, 35.0, 40.0, 75.0, 80.0, 95.0], (n_frames, 1))
+    if rescaled:
+        dims[:, :3] *= (1.0 + 0.01 * np.sin(np.arange(n_frames) / 7.0))[:, None]
+    cells = trajectory._cell_vectors(dims)
+    inv = np.linalg.inv(cells)
+    w = np.empty((n_frames, n, 3))
+    flags = np.zeros((n_frames, n, 3))
+    true = np.empty_like(w)
+    w[0] = true[0] = rng.uniform(0, 1, (n, 3)) @ cells[0]
+    for k in range(1, n_frames):
+        y = (w[k - 1] @ inv[k - 1]) @ cells[k] + rng.normal(0, 0.6, (n, 3))
+        true[k] = true[k - 1] + (y - w[k - 1])
+        crossed = np.floor(y @ inv[k])
+        w[k] = y - crossed @ cells[k]
+        flags[k] = flags[k - 1] + crossed
+    assert np.any(flags != 0)
+    proc = trajectory._FrameProcessor(
+        mode="images", explicit=False, atom_masses=np.ones(n),
+        particles=trajectory._Particles(np.arange(n), None, np.zeros(n, np.intp), ("a",),
+                                        np.ones(n), np.ones(n, np.intp)),
+        velocities=False, path=None)
+    u = np.concatenate([proc.unwrap(w[a:a + 16], dims[a:a + 16, :3], flags[a:a + 16],
+                                    cells[a:a + 16]).copy() for a in range(0, n_frames, 16)])
+    np.testing.assert_allclose(u - u[0], true - true[0], rtol=0, atol=1e-9)
+    if not rescaled:  # a fixed cell: exactly x + n H
+        np.testing.assert_allclose(u, w + flags @ cells[0], rtol=0, atol=1e-9)
+
+
 def test_triclinic_cell_unwrapped_like_mdanalysis_nojump(tmp_path):
     # Brownian motion wrapped into a rhombic dodecahedron (50 A, angles 60, 60, 90) and
     # written as XTC. References: the truth (float32 file rounding: 1e-3 A) and MDAnalysis's

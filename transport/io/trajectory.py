@@ -26,8 +26,8 @@ standard deviations away), the reader refuses with :class:`~transport.errors.Inp
 
 Triclinic boxes (cell vectors ``H``, rows a, b, c) use scheme 3 in lattice coordinates:
 ``d - round(d H(t+1)^-1) H(t+1)``, exact for steps much shorter than the cell heights (the
-spacing check then uses the smallest height); image flags are not supported for them. The
-series records the box angles (``PositionSeries.box_angles``).
+spacing check then uses the smallest height); image flags count cell vectors
+(``x + n H``). The series records the box angles (``PositionSeries.box_angles``).
 
 Coordinates of unknown kind (DCD, XTC, TRR, ...) are unwrapped by scheme 3; if no coordinate
 ever jumps by more than half a box and the box is constant, the result equals the coordinates
@@ -280,7 +280,7 @@ class _FrameProcessor:
         may be `x` itself (no unwrapping needed) or a new array.
         """
         if cells is not None:
-            return self._unwrap_cells(x, cells)
+            return self._unwrap_cells(x, cells, images)
         if self._u is None:
             first = self._first(x[0], None if box is None else box[0],
                                 None if images is None else images[0])
@@ -321,33 +321,38 @@ class _FrameProcessor:
         self.check()
         return u
 
-    def _unwrap_cells(self, x: np.ndarray, cells: np.ndarray) -> np.ndarray:
-        """Triclinic boxes: minimum-image steps in lattice coordinates.
+    def _unwrap_cells(self, x: np.ndarray, cells: np.ndarray,
+                      images: np.ndarray | None = None) -> np.ndarray:
+        """Triclinic boxes: minimum-image steps in lattice coordinates, or image flags.
 
         A step ``d`` is reduced by the lattice vector ``round(d H^-1) H`` of the later frame's
         cell ``H`` (rows a, b, c); for steps much shorter than the cell heights (the spacing
         check) that is the step's own image in any cell shape. Once the cell changes, each
-        frame is first wrapped into its own cell, as for orthorhombic boxes [1]_.
+        frame is first wrapped into its own cell, as for orthorhombic boxes [1]_. Image
+        flags ``n`` (LAMMPS: the unwrapped position is ``x + n H``) give
+        ``u(t+1) = u(t) + [x(t+1) - x(t)] + [n(t+1) - n(t)] H(t+1)``.
         """
         st = self.stats
-        if self.mode == "images":
-            raise InputError(
-                "unwrapping by image flags is not supported for a triclinic box",
-                path=self.path, expected="an orthorhombic box for image flags",
-                fix="use --unwrap displacement (minimum-image steps)")
+        if self.mode == "images" and images is None:
+            raise InputError("unwrapping by image flags needs the flags", path=self.path)
         heights = _cell_heights(cells)
         if self._u is None:
             st.frames += 1
             st.min_box = min(st.min_box, float(heights[0].min()))
             self._off = None
             self._u = x[0].astype(np.float64)
+            if self.mode == "images":
+                assert images is not None
+                self._u = self._u + images[0] @ cells[0]
+                self._n = images[0].copy()
             self._x = x[0].copy()
             self._cell0 = cells[0].copy()
             self._last_cell = cells[0].copy()
             first = self._u.copy()
             if x.shape[0] == 1:
                 return first[None]
-            return np.concatenate([first[None], self._unwrap_cells(x[1:], cells[1:])])
+            return np.concatenate([first[None], self._unwrap_cells(
+                x[1:], cells[1:], None if images is None else images[1:])])
         st.min_box = min(st.min_box, float(heights.min()))
         scale = float(np.abs(self._cell0).max())
         if not st.box_changed and np.any(np.abs(cells - self._cell0) > _BOX_RTOL * scale):
@@ -356,7 +361,15 @@ class _FrameProcessor:
                 self.mode = "displacement"
                 st.switched_at = st.frames
         st.frames += x.shape[0]
-        if not st.box_changed:
+        if self.mode == "images":
+            assert images is not None and self._n is not None
+            xs = np.concatenate([self._x[None], x]).astype(np.float64, copy=False)
+            ns = np.concatenate([self._n[None], images])
+            u = self._u + np.cumsum(np.diff(xs, axis=0)
+                                    + np.matmul(np.diff(ns, axis=0), cells), axis=0)
+            self._n = images[-1].copy()
+            self._off = None
+        elif not st.box_changed:
             u = self._unwrap_fixed_cell(x)
         else:
             self._off = None  # the offsets follow from _u and _x if ever needed again
