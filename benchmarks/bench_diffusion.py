@@ -238,13 +238,12 @@ def bench_size(n_atoms: int, n_frames: int, repeat: int, direct_frames: int) -> 
             extra = max(r["peak_kib"] - r["peak_imported_kib"] for r in rs) / 1024
             # the rounds ran side by side: the median of the per-round ratios is steadier
             # than the ratio of the best times on a shared machine
+            key = "work" if kind == "lib" else "process"
             paired = statistics.median(
-                r[key] / b[key] for r, b in zip(rs, runs["mda-read"], strict=True)
-                for key in ("work" if kind == "lib" else "process",))
+                r[key] / b[key] for r, b in zip(rs, runs["mda-read"], strict=True))
             ratio = ("baseline" if kind == "mda-read" else
                      f"work {work / base_work:.2f}x, process {proc / base_proc:.2f}x; "
-                     f"median per round ({'work' if kind == 'lib' else 'process'}) "
-                     f"{paired:.2f}x")
+                     f"median per round ({key}) {paired:.2f}x")
             lines.append(f"{fmt:6} {kind:10} {work:8.3f} {med:8.3f} {proc:10.3f} "
                          f"{peak:9.0f} {extra:10.0f}  {ratio}")
         e = best["lib"]

@@ -122,9 +122,6 @@ class StressSeries:
         Time of the first sample, in s (or tau).
     warnings : tuple of str
         What the reader noticed and the user must know.
-    box_angles : ndarray, shape (n_frames, 3), or None
-        Angles alpha, beta, gamma of a triclinic box per frame, in degrees; None for an
-        orthorhombic box.
     """
 
     pressure: np.ndarray
@@ -136,7 +133,6 @@ class StressSeries:
     temperature_source: str = ""
     t0: float = 0.0
     warnings: tuple[str, ...] = ()
-    box_angles: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         from .errors import InputError

@@ -28,6 +28,7 @@ import numpy as np
 
 from .._parallel import available_cpus
 from ..errors import InputError
+from ._dcd import _dcd_partial_tail
 from ._open import compression_of
 
 __all__ = ["NO_FORK_ENV", "_ForkedFrames", "_c_stderr_held", "_fork_split", "_frames",
@@ -93,11 +94,10 @@ class _ForkedFrames:
         with _warnings.catch_warnings():
             _warnings.simplefilter("ignore")
             reader = reader_type(str(path), **reader_kw)
-            got = 0
             ts = reader[self.start]  # one seek, then frame after frame (slices seek each)
             for i in range(self.count):
                 if i:
-                    ts = reader.next()
+                    ts = reader.next()  # raises past the end: the child then fails
                 self.x[i] = ts.positions
                 self.t[i] = ts.time
                 step = ts.data.get("step")
@@ -106,9 +106,6 @@ class _ForkedFrames:
                 self.box[i] = np.nan if dims is None else dims
                 if self.v is not None:
                     self.v[i] = ts.velocities  # raises where a frame has none
-                got = i + 1
-            if got != self.count:
-                raise RuntimeError("fewer frames than announced")
 
     def wait(self, path: Path) -> bool:
         """Wait for the child; True if it decoded every frame, False if it failed.
@@ -243,12 +240,17 @@ def _xtc_frame_bytes(p: Path, offset: int) -> int | None:
         return None
 
 
+def _partial_frame_note(p: Path, nbytes: str, after: int) -> str:
+    return (f"{p}: the file ends {nbytes} bytes into a frame after frame {after} (the run "
+            "probably stopped while writing it); that partial frame was not read")
+
+
 def _unread_tail(u: Any, p: Path, n_file: int) -> str | None:
-    """A note when data follow the last frame MDAnalysis indexed in an XTC/TRR file or an
-    uncompressed LAMMPS dump (a partial last frame); InputError when whole frames do (the
+    """A note when data follow the last frame MDAnalysis indexed in an XTC/TRR/DCD file or
+    an uncompressed LAMMPS dump (a partial last frame); InputError when whole frames do (the
     file is damaged there and MDAnalysis's index stopped early). None otherwise, and when
     it cannot be told (MDAnalysis's XDR frame index is a private attribute: without it no
-    check is made)."""
+    check is made; DCD files only in the plain layout of :mod:`transport.io._dcd`)."""
     name = type(u.trajectory).__name__
     size = p.stat().st_size
     damaged = dict(path=str(p), expected="frames up to the end of the file")
@@ -272,10 +274,12 @@ def _unread_tail(u: Any, p: Path, n_file: int) -> str | None:
                 f"{n_file - 1}, the last one MDAnalysis can find: the file is damaged there",
                 fix=f"repair the file, or truncate it after frame {n_file - 1}", **damaged)
         if (fixed and extra > 0) or (not fixed and extra > 0.5 * mean):
-            return (f"{p}: the file ends {'' if fixed else 'about '}{extra:.0f} bytes into a "
-                    f"frame after frame {n_file - 1} (the run probably stopped while writing "
-                    "it); that partial frame was not read")
+            return _partial_frame_note(p, f"{'' if fixed else 'about '}{extra:.0f}",
+                                       n_file - 1)
         return None
+    if name == "DCDReader":
+        tail = _dcd_partial_tail(p, n_file, u.atoms.n_atoms)
+        return _partial_frame_note(p, str(tail), n_file) if tail else None
     if name == "DumpReader" and compression_of(p) is None:
         with open(p, "rb") as fh, mmap.mmap(fh.fileno(), 0, access=mmap.ACCESS_READ) as mm:
             found = 0

@@ -98,7 +98,7 @@ from .._parallel import available_cpus, lane_map
 from ..errors import InputError
 from ..series import PositionSeries, Source
 from ..units import UnitSystem, get_unit_system
-from ._dcd import _bulk_dcd, _dcd_partial_tail
+from ._dcd import _bulk_dcd
 from ._frames import (
     _c_stderr_held,
     _fork_split,
@@ -404,17 +404,17 @@ class _FrameProcessor:
         st = self.stats
         b, n = x.shape[0], x.shape[1]
         cell = self._cell0
+        inv = np.linalg.inv(cell)
         # reused work arrays (fresh block-sized ones would be page-faulted in each time)
         d, u, mask = self._work(x.shape, x.dtype)
-        full = self._work_arrays[0] if self._work_arrays is not None else d
+        full = self._work_arrays[0]  # what `d` is a part of
         if (self._lattice is None or self._lattice.shape != full.shape
                 or self._lattice.dtype != full.dtype):
             self._lattice = np.empty_like(full)
         q = self._lattice[:b]
         np.subtract(x[1:], x[:-1], out=d[1:])
         np.subtract(x[0], self._x, out=d[0])
-        np.matmul(d.reshape(-1, 3), np.linalg.inv(cell).astype(x.dtype),
-                  out=q.reshape(-1, 3))
+        np.matmul(d.reshape(-1, 3), inv.astype(x.dtype), out=q.reshape(-1, 3))
         np.abs(q, out=q)
         # flat indices, not a reduction over the length-3 axis (several times slower)
         jump_atoms = np.unique(np.flatnonzero(np.greater(q, 0.5, out=mask)) // 3)
@@ -429,16 +429,10 @@ class _FrameProcessor:
             before = np.where((frame == 0)[:, None], self._x[atom],
                               x[np.maximum(frame - 1, 0), atom]).astype(np.float64)
             step = x[frame, atom].astype(np.float64) - before
-            inc = -np.rint(step @ np.linalg.inv(cell)) @ cell  # (jumps, 3)
+            inc = -np.rint(step @ inv) @ cell  # (jumps, 3)
             st.sum_d2 += float(np.sum((step + inc) ** 2 - step**2))
-            cols = (3 * atom[:, None] + np.arange(3)).ravel()
-            rows = np.repeat(frame, 3)
-            ucols, which = np.unique(cols, return_inverse=True)
-            grow = np.zeros((b, ucols.size))
-            np.add.at(grow, (rows, which), inc.ravel())
-            np.cumsum(grow, axis=0, out=grow)
-            u.reshape(b, -1)[:, ucols] += grow
-            self._off.reshape(-1)[ucols] += grow[-1]
+            _add_from_frames(u.reshape(b, -1), self._off.reshape(-1), np.repeat(frame, 3),
+                             (3 * atom[:, None] + np.arange(3)).ravel(), inc.ravel())
         st.sum_d2 += float(np.einsum("bij,bij->", d, d))
         st.n_d += d.size
         return u
@@ -507,7 +501,6 @@ class _FrameProcessor:
         """One lane of :meth:`_unwrap_constant`: 2-D views (frames, coordinates) of the block,
         the work arrays, the previous frame, half the box and the offsets (None: only count
         the jumps) of coordinates ``start ...``. Returns (sum of squared steps, raw jumps)."""
-        b = x.shape[0]
         # raw steps in the coordinates' own precision: only compared with half a box here;
         # the steps that matter are recomputed in float64 below
         np.subtract(x[1:], x[:-1], out=d[1:])
@@ -531,20 +524,7 @@ class _FrameProcessor:
             inc = -length * np.rint(step / length)
             # the rms step counts the corrected steps, not the raw jumps
             sum_d2 += float(np.sum((step + inc) ** 2 - step**2))
-            # the columns that jump, and each jump's place among them: a mark per column
-            # costs less than sorting the jumps when they are many for the columns
-            if 8 * jumps.size >= m:
-                marked = np.zeros(m, dtype=np.intp)
-                marked[col] = 1
-                cols = np.flatnonzero(marked)
-                which = (np.cumsum(marked) - 1)[col]
-            else:
-                cols, which = np.unique(col, return_inverse=True)
-            grow = np.zeros((b, cols.size))
-            grow[frame, which] = inc
-            np.cumsum(grow, axis=0, out=grow)
-            u[:, cols] += grow
-            off[cols] += grow[-1]
+            _add_from_frames(u, off, frame, col, inc)
         return sum_d2, int(jumps.size)
 
     def _unwrap_fluctuating(self, x: np.ndarray, box: np.ndarray) -> np.ndarray:
@@ -1286,6 +1266,37 @@ def _block_boxes(dims: np.ndarray, need: bool, path: Path, first_frame: int
     return lengths, _cell_vectors(dims)
 
 
+def _add_from_frames(u: np.ndarray, off: np.ndarray, frame: np.ndarray, col: np.ndarray,
+                     inc: np.ndarray) -> None:
+    """Add each jump's increment `inc` to ``u[frame:, col]`` and to the carried offsets.
+
+    `u` is a 2-D view (frames, coordinates) of a block, `off` the per-coordinate offsets
+    carried to the next block (both changed in place); each (frame, col) pair occurs once.
+    Only the columns that jump are touched: their increments are summed down the frames.
+    """
+    b, m = u.shape
+    # the columns that jump, and each jump's place among them: a mark per column costs
+    # less than sorting the jumps when they are many for the columns
+    if 8 * col.size >= m:
+        marked = np.zeros(m, dtype=np.intp)
+        marked[col] = 1
+        cols = np.flatnonzero(marked)
+        which = (np.cumsum(marked) - 1)[col]
+    else:
+        cols, which = np.unique(col, return_inverse=True)
+    grow = np.zeros((b, cols.size))
+    grow[frame, which] = inc
+    np.cumsum(grow, axis=0, out=grow)
+    u[:, cols] += grow
+    off[cols] += grow[-1]
+
+
+def _no_step(frame: int, p: Path) -> InputError:
+    return InputError(f"frame {frame} stores no step number", path=str(p),
+                      expected="a step number in every frame",
+                      fix="give the time between frames with --frame-interval")
+
+
 def _put(dst: np.ndarray, src: np.ndarray, scale: float) -> None:
     """``dst[...] = src * scale`` in one pass (float64 to the float32 store)."""
     if scale == 1.0:
@@ -1403,8 +1414,6 @@ class _Collector:
         if not self.has_box or not self.angles:
             return None
         ang = np.concatenate(self.angles)
-        if ang.shape[0] != sum(b.shape[0] for b in self.boxes):
-            return None
         return ang if np.any(np.abs(ang - 90.0) > 1e-3) else None
 
     def finish(self) -> dict[str, Any]:
@@ -1590,10 +1599,7 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
         elif kind == "step":
             step = ts.data.get("step")
             if step is None:
-                raise InputError(
-                    f"frame {ts.frame} stores no step number",
-                    path=str(p), expected="a step number in every frame",
-                    fix="give the time between frames with --frame-interval")
+                raise _no_step(ts.frame, p)
             bb.t[fill] = step
         dims = ts.dimensions
         bb.box[fill] = np.nan if dims is None else dims
@@ -1617,10 +1623,7 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
         """Process the frames a forked decoder left in shared memory, block by block."""
         nonlocal fill
         if kind == "step" and np.isnan(forked.step).any():
-            bad = forked.start + int(np.argmax(np.isnan(forked.step)))
-            raise InputError(f"frame {bad} stores no step number", path=str(p),
-                             expected="a step number in every frame",
-                             fix="give the time between frames with --frame-interval")
+            raise _no_step(forked.start + int(np.argmax(np.isnan(forked.step))), p)
         for a in range(0, forked.count, block_size):
             b = min(block_size, forked.count - a)
             bb.x[:b] = forked.x[a:a + b]
@@ -1667,6 +1670,9 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
                             bb.box[:b] = np.nan if dims is None else dims
                             fill = b
                             flush()
+                    tail_note = _unread_tail(u, p, n)
+                    if tail_note:
+                        file_notes.append(tail_note)
                     continue
                 if has_v is None:
                     first = u.trajectory[0]
@@ -1719,12 +1725,6 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
     proc.check(final=True)
     res = coll.finish()
     warn = [*notes, *file_notes]
-    for p, n in zip(paths, lengths, strict=True):
-        tail = _dcd_partial_tail(p, n, n_atoms) if p.suffix.lower() == ".dcd" else None
-        if tail:
-            warn.append(f"{p}: the file ends {tail} bytes into a frame after frame {n} (the "
-                        "run probably stopped while writing it); that partial frame was "
-                        "not read")
     if duplicates:
         warn.append(f"{duplicates} frame(s) repeated at the boundary between parts were "
                     "read once")
