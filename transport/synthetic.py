@@ -20,6 +20,7 @@ References
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
 from dataclasses import dataclass
 
@@ -65,6 +66,27 @@ def ou_process(
     return ornstein_uhlenbeck((size, n), dt=dt, tau=tau, rng=rng, sigma=sigma)
 
 
+def _damped_oscillation(n: int, dt: float, tau: float, omega: float, sigma: float,
+                        rng: np.random.Generator, size: int) -> np.ndarray:
+    """Stationary series with autocorrelation sigma^2 exp(-t/tau) cos(omega t), exactly.
+
+    The real part of a complex AR(1), z_{k+1} = r e^{i omega dt} z_k + e_k with
+    r = exp(-dt/tau) and circular Gaussian e_k, started in its stationary law: E[z z] = 0
+    makes the real part's autocovariance (1/2) E|z|^2 r^k cos(k omega dt).
+    """
+    from scipy.signal import lfilter
+
+    r = math.exp(-dt / tau)
+    coef = r * complex(math.cos(omega * dt), math.sin(omega * dt))
+    var_z = 2.0 * sigma**2  # E|z|^2, so that Var(Re z) = sigma^2
+    scale = math.sqrt(var_z * (1.0 - r * r) / 2.0)
+    e = scale * (rng.standard_normal((size, n)) + 1j * rng.standard_normal((size, n)))
+    z0 = math.sqrt(var_z / 2.0) * (rng.standard_normal(size) + 1j * rng.standard_normal(size))
+    e[:, 0] = z0
+    z = lfilter([1.0], [1.0, -coef], e, axis=1)
+    return z.real
+
+
 @dataclass(frozen=True)
 class OUStressModel:
     """Isotropic stress fluctuations with a known Green–Kubo viscosity.
@@ -80,16 +102,31 @@ class OUStressModel:
     pressure_noise : float
         Standard deviation of white noise added to the hydrostatic pressure (does not change
         the viscosity: the traceless part removes it).
+    frequencies : sequence of float, optional
+        Angular frequency omega_m of each mode (1/time unit); a mode with omega_m > 0 is a
+        damped oscillation with autocorrelation s_m^2 exp(-t/tau_m) cos(omega_m t), the
+        shape of the intramolecular (bond) part of a flexible molecule's stress. Default: all
+        zero (plain OU modes).
     """
 
     amplitudes: Sequence[float]
     times: Sequence[float]
     mean_pressure: float = 0.0
     pressure_noise: float = 0.0
+    frequencies: Sequence[float] | None = None
+
+    def _omegas(self) -> tuple[float, ...]:
+        if self.frequencies is None:
+            return (0.0,) * len(self.times)
+        return tuple(float(w) for w in self.frequencies)
 
     def integral(self) -> float:
-        """integral_0^inf C(t) dt = sum_m s_m^2 tau_m (pressure^2 x time)."""
-        return float(sum(s * s * t for s, t in zip(self.amplitudes, self.times, strict=True)))
+        """integral_0^inf C(t) dt = sum_m s_m^2 tau_m / (1 + omega_m^2 tau_m^2).
+
+        In pressure^2 x time (the Laplace transform of exp(-t/tau) cos(omega t) at 0).
+        """
+        return float(sum(s * s * t / (1.0 + (w * t) ** 2) for s, t, w in
+                         zip(self.amplitudes, self.times, self._omegas(), strict=True)))
 
     def viscosity(self, volume: float, kT: float) -> float:
         """Exact Green–Kubo viscosity V/(2 k_B T) * sum_m s_m^2 tau_m."""
@@ -113,8 +150,9 @@ class OUStressModel:
     def sample(self, n: int, dt: float, rng: np.random.Generator) -> np.ndarray:
         """Pressure tensor samples, shape (6, n): xx, yy, zz, xy, xz, yz."""
         a = np.zeros((5, n))
-        for s, t in zip(self.amplitudes, self.times, strict=True):
-            a += ou_process(n, dt, t, s, rng, size=5)
+        for s, t, w in zip(self.amplitudes, self.times, self._omegas(), strict=True):
+            a += ou_process(n, dt, t, s, rng, size=5) if w == 0 else _damped_oscillation(
+                n, dt, t, w, s, rng, size=5)
         p = np.empty((6, n))
         # orthonormal basis of traceless symmetric matrices (Frobenius norm 1)
         p[3] = a[0] * _INV_SQRT2  # xy
