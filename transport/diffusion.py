@@ -127,6 +127,10 @@ ORIGINS_PER_LAG = 3.0
 MAX_FIT_POINTS = 120
 #: The GLS standard error is scaled by sqrt(chi^2/dof) when the chi-square p-value is below this.
 CHI2_SCALE_P = 0.05
+#: Most time blocks for the block check of the diffusion error bar, and the fewest for
+#: which it is made (dof = blocks - 1).
+BLOCKS_MAX = 16
+BLOCKS_MIN = 4
 #: VACF: normalised level below which the VACF counts as decayed.
 VACF_LEVEL = 0.01
 #: VACF: smallest normalised VACF one frame after the origin for a trustworthy integral.
@@ -965,12 +969,70 @@ def _msd_estimate(slist: list[PositionSeries], name: str,
         )
         raise err
     fit = fit_msd(mean, dt, (k0, k1), frames=frames, counts=counts)
-    return _msd_result(fit, mean, time, dt, name, diag, curves, rule, u, warn, lf)
+    block = _block_check(members, name, (k0, k1), dt, remove_drift, workers)
+    return _msd_result(fit, mean, time, dt, name, diag, curves, rule, u, warn, lf, block)
+
+
+@dataclass(frozen=True)
+class _BlockCheck:
+    """Scatter of independent time blocks against their model error bars."""
+
+    values: np.ndarray  # D of each block (internal units)
+    stderrs: np.ndarray  # model (random-walk) standard error of each block
+    block_frames: int
+    factor: float  # sqrt(chi^2 / dof) of the block values about their weighted mean
+
+    @property
+    def dof(self) -> int:
+        return int(self.values.size - 1)
+
+
+def _block_check(members: list[PositionSeries], name: str, window: tuple[int, int],
+                 dt: float, remove_drift: bool, workers: int | None) -> _BlockCheck | None:
+    """Fit the same window in independent time blocks; compare their scatter with the model.
+
+    The random-walk covariance treats particles as independent; in a periodic liquid their
+    displacements are correlated by collective, momentum-conserving motion, which only
+    independent repeats show. Returns None when fewer than BLOCKS_MIN blocks fit.
+    """
+    k0, k1 = window
+    nmin = min(s.n_frames for s in members)
+    # as many blocks as keep the window (or, in short runs, a window cut to a quarter of the
+    # block, no shorter than twice its start) inside each block with ORIGINS_PER_LAG origins
+    # per lag; the ratio of scatter to model error is what the blocks measure
+    for nb in (BLOCKS_MAX, 8, BLOCKS_MIN):
+        per_rep = max(1, -(-nb // len(members)))
+        length = nmin // per_rep
+        kb = min(k1, int((length - 1) // (ORIGINS_PER_LAG + 1)))
+        if kb >= max(2 * k0, k0 + 4):
+            break
+    else:
+        return None
+    vals, ses = [], []
+    for s in members:
+        idx = np.unique(s.species_indices(name))
+        for j in range(s.n_frames // length):
+            sl = slice(j * length, (j + 1) * length)
+            shift = s.drift[sl] if (remove_drift and s.drift is not None) else None
+            m = _fft_msd(s.positions[sl], max_lag=kb, particles=idx, shift=shift,
+                         workers=workers)
+            f = fit_msd(m, dt, (k0, kb), frames=[length], counts=[float(idx.size)])
+            vals.append(f.diffusion)
+            ses.append(f.stderr / f.scale_factor)  # the model error, unscaled
+    if len(vals) < BLOCKS_MIN:
+        return None
+    v, e = np.array(vals), np.array(ses)
+    if not np.all(e > 0):
+        return None
+    w = 1.0 / e**2
+    mu = float(np.sum(w * v) / np.sum(w))
+    chi2 = float(np.sum(w * (v - mu) ** 2))
+    return _BlockCheck(v, e, length, math.sqrt(chi2 / (v.size - 1)))
 
 
 def _msd_result(fit: MSDFit, mean: np.ndarray, time: np.ndarray, dt: float, name: str,
-                diag: dict, curves: dict, rule: str, u: UnitSystem, warn: list[str], lf: float
-                ) -> Estimate:
+                diag: dict, curves: dict, rule: str, u: UnitSystem, warn: list[str], lf: float,
+                block: _BlockCheck | None = None) -> Estimate:
     ds, ts = u.diffusion_scale, u.time_scale
     k0, k1 = int(fit.lags[0]), int(fit.lags[-1])
     frames, counts = diag["frames"], [float(c) for c in diag["particles_per_replica"]]
@@ -1003,7 +1065,20 @@ def _msd_result(fit: MSDFit, mean: np.ndarray, time: np.ndarray, dt: float, name
             f"for {fit.dof} degrees of freedom, p = {p:.2g})")
     if value <= 0:
         warn.append(f"{name}: the fitted slope is not positive")
+    model_se = se / fit.scale_factor
+    block_factor = block.factor if block is not None else float("nan")
+    use_block = block is not None and block.factor > max(fit.scale_factor, 1.0)
+    if use_block:
+        se = model_se * block.factor
+        warn.append(
+            f"{name}: {block.values.size} independent time blocks scatter "
+            f"{block.factor:.2g}x more than the random-walk model error allows; the error bar "
+            "was widened by that factor (particles do not move independently)")
     (lo, hi), interval_rule = msd_interval(value, se)
+    if use_block:
+        q = float(special.stdtrit(block.dof, 0.975))
+        lo, hi = min(lo, value - q * se), max(hi, value + q * se)
+        interval_rule += f"; at least Student t with {block.dof} dof (time blocks)"
     if interval_rule.startswith("symmetric"):
         warn.append(f"{name}: the error bar is too large for the scale-aware interval; the "
                     "symmetric normal interval is given")
@@ -1025,9 +1100,18 @@ def _msd_result(fit: MSDFit, mean: np.ndarray, time: np.ndarray, dt: float, name
         chi2_pvalue=p,
         covariance_model="analytic random-walk covariance of the MSD points (Bullerjahn, "
                          "von Bülow & Hummer 2020), independent particles",
-        stderr_scale_factor=fit.scale_factor,
+        stderr_scale_factor=(block.factor if use_block else fit.scale_factor),
+        stderr_model=model_se * ds,
+        fit_scale_factor=fit.scale_factor,
+        block_scale_factor=block_factor,
+        block_count=0 if block is None else int(block.values.size),
+        block_length=float("nan") if block is None else block.block_frames * dt * ts,
+        block_values=[] if block is None else [float(x) * ds for x in block.values],
+        block_stderrs=[] if block is None else [float(x) * ds for x in block.stderrs],
         stderr_method=(
-            "generalized least squares with the model covariance at the fitted D" + (
+            f"model error times the scatter of {block.values.size} independent time blocks "
+            f"about their weighted mean, sqrt(chi^2/dof) = {block.factor:.3g}" if use_block
+            else "generalized least squares with the model covariance at the fitted D" + (
                 f", scaled by the Birge ratio sqrt(chi^2/dof) = {fit.scale_factor:.3g} "
                 f"(chi^2 p-value below {CHI2_SCALE_P:g})" if fit.scale_factor > 1 else "")),
         interval_method=interval_rule,
