@@ -72,3 +72,4 @@ def test_control_the_old_rule_fails(monkeypatch):
     gk = analyse_viscosity(_run(3)).green_kubo
     assert gk.value < 0.5 * eta
     assert abs(gk.value - eta) > 10 * gk.stderr
+

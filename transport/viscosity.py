@@ -754,6 +754,41 @@ def _interval(value: float, stderr: float, n: int) -> tuple[float, float]:
     return value - q * stderr, value + q * stderr
 
 
+def _rising_note(integ: np.ndarray, k: int, prep: _Prepared, u) -> str | None:
+    """A warning when the running integral rises significantly from lag k to the last lag."""
+    rising = _still_rising(integ, k)
+    if rising is None:
+        return None
+    vs, ts = u.viscosity_scale, u.time_scale
+    rise, rise_se = rising
+    return (
+        f"the running integral keeps rising after {k * prep.dt * ts:.3g} {u.time_unit}: it "
+        f"grows by {rise * vs:.3g} +- {rise_se * vs:.2g} {u.viscosity_unit} up to the "
+        f"maximum lag ({prep.max_lag * prep.dt * ts:.3g} {u.time_unit}), so the plateau is "
+        "not reached and the viscosity is probably too small; run longer (or add replicas) "
+        "so that segments hold the slow relaxation"
+    )
+
+
+def _still_rising(integ: np.ndarray, k: int) -> tuple[float, float] | None:
+    """Rise of the running integral from lag k to the last lag, if significant.
+
+    Paired across the independent pieces: the change I(t_max) - I(t_k) of each piece,
+    its mean and standard error; significant when the mean exceeds 3 standard errors
+    (one-sided, about 0.1% false alarms for a normal mean). Returns (rise, stderr) or None.
+    """
+    n, m = integ.shape
+    k = min(k, m // 2)  # a cutoff at the maximum lag is checked over the second half
+    if n < MIN_PIECES or m < 8:
+        return None
+    d = integ[:, -1] - integ[:, k]
+    se = float(d.std(ddof=1) / math.sqrt(n))
+    rise = float(d.mean())
+    if se > 0 and rise > 3.0 * se:
+        return rise, se
+    return None
+
+
 def _green_kubo(
     prep: _Prepared,
     slist: list[StressSeries],
@@ -807,6 +842,9 @@ def _green_kubo(
         value = float(vals.mean())
         stderr = float(vals.std(ddof=1) / math.sqrt(n))
         diag.update(cutoff=k * prep.dt * ts, cutoff_rule="given")
+        note = _rising_note(integ, k, prep, u)
+        diag.update(still_rising=note is not None)
+        warn.extend([note] if note else [])
         return Estimate(
             "shear_viscosity", "green_kubo", value * vs, stderr * vs,
             tuple(x * vs for x in _interval(value, stderr, n)), u.viscosity_unit,
@@ -848,6 +886,9 @@ def _green_kubo(
     jk = value + (loo - sub.mean(axis=0)[None, :]) @ h
     stderr = float(math.sqrt((jk.size - 1) / jk.size * np.sum((jk - jk.mean()) ** 2)))
     fit_curve = np.concatenate([[0.0], _double_exp(t[1:], *popt)])
+    note = _rising_note(integ, kc, prep, u)
+    diag.update(still_rising=note is not None)
+    warn.extend([note] if note else [])
     curves.update(sigma=std * vs, sigma_fit=sigma_fit * vs, fit=fit_curve * vs)
     tc = kc * prep.dt
     diag.update(
