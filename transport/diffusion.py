@@ -1073,7 +1073,7 @@ def _msd_result(fit: MSDFit, mean: np.ndarray, time: np.ndarray, dt: float, name
         warn.append(
             f"{name}: {block.values.size} independent time blocks scatter "
             f"{block.factor:.2g}x more than the random-walk model error allows; the error bar "
-            "was widened by that factor (particles do not move independently)")
+            "was widened by that factor (the model treats particles as independent)")
     (lo, hi), interval_rule = msd_interval(value, se)
     if use_block:
         q = float(special.stdtrit(block.dof, 0.975))
