@@ -189,8 +189,10 @@ def _level_off_time(
     nb = min(n, 1 << 22)
     sizes, conv = [], []
     for c in np.nonzero(weights > 0)[0]:
-        comp = _TRACELESS[c] @ np.stack([row[:nb] for row in p]) - offset[c]
-        res = block_average(comp)
+        # one traceless component from the rows it uses (three for a diagonal, one else),
+        # without stacking all six rows for each component
+        comp = sum(float(w) * p[j][:nb] for j, w in enumerate(_TRACELESS[c]) if w != 0.0)
+        res = block_average(comp - offset[c])
         sizes.append(res.block_size)
         conv.append(res.converged)
     t_block = 0.25 * float(np.median(sizes)) * dt
