@@ -96,10 +96,22 @@ from scipy import special
 
 from .errors import InputError, RunTooShortError
 from .estimate import Estimate
+from .msd_fit import (
+    CHI2_SCALE_P,
+    ORIGINS_PER_LAG,
+    MSDFit,
+    _alpha_outside,
+    _local_slope,
+    diffusive_window,
+    fit_msd,
+    msd_covariance,
+    msd_interval,
+    msd_variance,
+)
 from .series import PositionSeries
-from .stats import autocorrelation
 from .stats import msd as _fft_msd
 from .units import UnitSystem
+from .vacf import vacf_estimate
 
 __all__ = [
     "DiffusionAnalysis",
@@ -115,403 +127,16 @@ __all__ = [
     "vacf_diffusion",
 ]
 
-#: |alpha - 1| allowed in the diffusive window, beyond the statistical allowance.
-ALPHA_TOL = 0.1
-#: Statistical allowance for alpha, in standard deviations of the random-walk model.
-ALPHA_Z = 3.0
-#: The local slope must stay near 1 over at least this factor in lag where the window starts.
-WINDOW_SPAN = 3.0
-#: The fit window ends where the number of origins is at least this many times the lag.
-ORIGINS_PER_LAG = 3.0
-#: Most MSD points entering the GLS fit (log- and linearly spaced in the window).
-MAX_FIT_POINTS = 120
-#: The GLS standard error is scaled by sqrt(chi^2/dof) when the chi-square p-value is below this.
-CHI2_SCALE_P = 0.05
 #: Most time blocks for the block check of the diffusion error bar, and the fewest for
 #: which it is made (dof = blocks - 1).
 BLOCKS_MAX = 16
 BLOCKS_MIN = 4
-#: VACF: normalised level below which the VACF counts as decayed.
-VACF_LEVEL = 0.01
-#: VACF: smallest normalised VACF one frame after the origin for a trustworthy integral.
-VACF_MIN_FIRST = 0.7
-#: VACF: segments are at least this many cutoffs long.
-VACF_SEGMENT_FACTOR = 10
-#: VACF: target number of independent pieces (time segments x particle blocks).
-VACF_TARGET_PIECES = 20
 #: Chunk of float64 values converted at a time (bounded memory for big trajectories).
 _CHUNK_VALUES = 1 << 23
 #: Bytes of the zero-padded float64 buffer of one block of particles in :func:`species_msd`
 #: (about 1 MB: stays in cache, no fresh memory per block; 4 MB measured 25% slower).
 _MSD_BLOCK_BYTES = 1 << 20
 _DIM = 3
-
-
-# ---------------------------------------------------------------------------------------
-# the random-walk covariance of MSD points
-# ---------------------------------------------------------------------------------------
-
-
-def _p2(k: np.ndarray) -> np.ndarray:
-    return k * (k + 1.0) * (2.0 * k + 1.0) / 6.0
-
-
-def _p3(k: np.ndarray) -> np.ndarray:
-    return (k * (k + 1.0) / 2.0) ** 2
-
-
-def msd_covariance(lags: np.ndarray, n_frames: int) -> np.ndarray:
-    """Covariance of time-averaged MSD points of a Gaussian random walk (one coordinate).
-
-    Parameters
-    ----------
-    lags : array_like of int, shape (K,)
-        Lags in frames, each in ``1 .. n_frames - 1``.
-    n_frames : int
-        Number of frames ``N + 1`` (``N`` steps).
-
-    Returns
-    -------
-    ndarray, shape (K, K)
-        ``Cov[M(n), M(m)]`` for one coordinate of one particle with unit step variance
-        (multiply by ``s^4``, ``s^2 = 2 D dt``); for ``d`` coordinates and ``P`` independent
-        particles multiply by ``d / P``.
-
-    Notes
-    -----
-    ``Cov = 2 S(n, m) / ((N - n + 1)(N - m + 1))`` with ``S`` the sum over pairs of origins of
-    the squared number of shared steps. For ``n <= m`` and ``c = N - n - m + 1``,
-    ``k0 = max(1, n + m - N - 1)``,
-
-        S = 2 sum_{k=k0}^{n} k^2 (c + k) + n^2 (N - m + 1) max(m - n - 1, 0)
-            - [n = m] n^2 (N - n + 1),
-
-    evaluated with the power sums of k^2 and k^3. Its diagonal reproduces the variance of
-    Qian, Sheetz & Elson [2]_ (their two-dimensional relative variance is half of the
-    one-dimensional one).
-
-    References
-    ----------
-    .. [1] Bullerjahn, von Bülow & Hummer, J. Chem. Phys. 153, 024116 (2020).
-    .. [2] Qian, Sheetz & Elson, Biophys. J. 60, 910 (1991).
-
-    Examples
-    --------
-    >>> float(msd_covariance([1], 3)[0, 0])  # two steps: M(1) = (a^2 + b^2)/2, var = 1
-    1.0
-    """
-    k = np.asarray(lags, dtype=np.float64).ravel()
-    n_steps = _check_lags(k, n_frames)
-    cov = _cov_formula(np.minimum.outer(k, k), np.maximum.outer(k, k), n_steps)
-    origins = n_steps - k + 1.0
-    return cov / np.outer(origins, origins)
-
-
-def _check_lags(k: np.ndarray, n_frames: int) -> float:
-    n_steps = float(n_frames - 1)
-    if k.size and (np.any(k < 1) or np.any(k > n_steps) or np.any(k != np.round(k))):
-        raise ValueError(f"lags must be integers in [1, {int(n_steps)}]")
-    return n_steps
-
-
-def _cov_formula(lo: np.ndarray, hi: np.ndarray, n_steps: float) -> np.ndarray:
-    """``2 S(lo, hi)`` elementwise (see :func:`msd_covariance`), lo <= hi."""
-    c = n_steps - lo - hi + 1.0
-    k0 = np.maximum(1.0, lo + hi - n_steps - 1.0)
-    f = c * (_p2(lo) - _p2(k0 - 1.0)) + (_p3(lo) - _p3(k0 - 1.0))
-    s = 2.0 * f + lo**2 * (n_steps - hi + 1.0) * np.maximum(hi - lo - 1.0, 0.0)
-    s -= np.where(lo == hi, lo**2 * (n_steps - lo + 1.0), 0.0)
-    return 2.0 * s
-
-
-def msd_variance(lags: np.ndarray, n_frames: int) -> np.ndarray:
-    """The diagonal of :func:`msd_covariance` (variances only, O(K))."""
-    k = np.asarray(lags, dtype=np.float64).ravel()
-    n_steps = _check_lags(k, n_frames)
-    return _cov_formula(k, k, n_steps) / (n_steps - k + 1.0) ** 2
-
-
-def _combined_shape(lags: np.ndarray, frames: Sequence[int], counts: Sequence[float]
-                    ) -> np.ndarray:
-    """Covariance shape of the particle-weighted mean MSD of several independent replicas.
-
-    ``Cov[mean MSD] = d s^4 * shape`` with ``shape = sum_r P_r C_1(N_r) / (sum_r P_r)^2``.
-    """
-    total = float(sum(counts))
-    out = np.zeros((lags.size, lags.size))
-    for n, p in zip(frames, counts, strict=True):
-        out += p * msd_covariance(lags, n)
-    return out / total**2
-
-
-# ---------------------------------------------------------------------------------------
-# window and fit on arrays
-# ---------------------------------------------------------------------------------------
-
-
-def _slope_grid(k_max: int) -> np.ndarray:
-    return np.unique(np.round(np.geomspace(1, max(k_max, 2), 16 * max(
-        1, int(math.ceil(math.log10(max(k_max, 2))))) + 1)).astype(int))
-
-
-def _local_slope(msd: np.ndarray, frames: Sequence[int], counts: Sequence[float]
-                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """alpha on a log grid of lags: (lags, alpha, standard deviation of alpha for a walk)."""
-    k_max = msd.size - 1
-    g = _slope_grid(k_max)
-    g = g[(g >= 1) & (g <= k_max)]
-    if g.size < 3:
-        return g[:0], np.zeros(0), np.zeros(0)
-    a, b = g[:-2], g[2:]
-    with np.errstate(divide="ignore", invalid="ignore"):
-        alpha = (np.log(msd[b]) - np.log(msd[a])) / (np.log(b) - np.log(a))
-    shape = _combined_shape(g, frames, counts)
-    ia, ib = np.arange(a.size), np.arange(2, g.size)
-    # relative covariance of walk MSD points: d s^4 shape / (d s^2 n)(d s^2 m) = shape/(d n m)
-    rel = shape / (_DIM * np.outer(g, g))
-    var = rel[ia, ia] + rel[ib, ib] - 2.0 * rel[ia, ib]
-    sd = np.sqrt(np.maximum(var, 0.0)) / (np.log(b) - np.log(a))
-    return g[1:-1], alpha, sd
-
-
-def diffusive_window(
-    msd: np.ndarray,
-    *,
-    frames: Sequence[int],
-    counts: Sequence[float],
-) -> tuple[int, int, str]:
-    """The diffusive window ``(k0, k1)`` in frames, from the local slope of log MSD.
-
-    Parameters
-    ----------
-    msd : ndarray, shape (K + 1,)
-        Mean MSD at lags 0..K (any length unit).
-    frames : sequence of int
-        Frames of each replica behind `msd`.
-    counts : sequence of float
-        Particles of each replica.
-
-    Returns
-    -------
-    k0, k1 : int
-        First and last lag of the window (frames); ``k0 = 0`` if no diffusive regime was
-        found within the trusted lags.
-    rule : str
-        The rule, in words.
-    """
-    n_steps = min(frames) - 1
-    k1 = int(min(msd.size - 1, math.floor((n_steps + 1) / (ORIGINS_PER_LAG + 1))))
-    lags, alpha, sd = _local_slope(msd, frames, counts)
-    rule = (f"from the first lag after which |alpha - 1| <= max({ALPHA_TOL:g}, {ALPHA_Z:g} sd) "
-            f"over a factor {WINDOW_SPAN:g} in lag, to the lag with {ORIGINS_PER_LAG:g}x as "
-            "many origins")
-    if lags.size == 0:
-        return 0, k1, rule
-    left = np.concatenate([[1], lags[:-1]])  # alpha at lags[j] uses msd from left[j] on
-    ok = np.isfinite(alpha) & (np.abs(alpha - 1.0) <= np.maximum(ALPHA_TOL, ALPHA_Z * sd))
-    for j in np.flatnonzero(ok & (lags <= k1)):
-        span_end = min(k1, WINDOW_SPAN * lags[j])
-        inside = (lags >= lags[j]) & (lags <= span_end)
-        if np.all(ok[inside]):
-            return int(left[j]), k1, rule
-    return 0, k1, rule
-
-
-def _alpha_outside(msd: np.ndarray, window: tuple[int, int], frames: Sequence[int],
-                   counts: Sequence[float]) -> float:
-    """Fraction of slope-grid lags in the window where alpha leaves the diffusive band."""
-    lags, alpha, sd = _local_slope(msd, frames, counts)
-    inside = (lags >= window[0]) & (lags <= window[1])
-    if not inside.any():
-        return float("nan")
-    bad = ~(np.abs(alpha - 1.0) <= np.maximum(ALPHA_TOL, ALPHA_Z * sd))
-    return float(np.mean(bad[inside]))
-
-
-def _fit_lags(k0: int, k1: int) -> np.ndarray:
-    """Lags of the fit: spaced by half the window start, at most MAX_FIT_POINTS of them.
-
-    Spacing the points by ``k0 / 2`` (where the motion is already diffusive) keeps the
-    frame-level fine structure of smooth (inertial) trajectories, which a random walk does
-    not have, out of the fit; for a random walk (``k0 = 1``) every lag is used.
-    """
-    step = max(1, k0 // 2)
-    lags = np.arange(k0, k1 + 1, step)
-    if lags[-1] != k1:
-        lags = np.append(lags, k1)
-    if lags.size > MAX_FIT_POINTS:
-        half = MAX_FIT_POINTS // 2
-        lg = np.round(np.geomspace(k0, k1, half) / step).astype(int) * step
-        ln = np.round(np.linspace(k0, k1, half) / step).astype(int) * step
-        lags = np.unique(np.clip(np.concatenate([lg, ln, [k0, k1]]), k0, k1))
-    return lags
-
-
-@dataclass(frozen=True)
-class MSDFit:
-    """A GLS fit ``MSD(t) = 2 d D t + b`` with the random-walk covariance.
-
-    All quantities in internal units (length^2, time, length^2/time).
-
-    Attributes
-    ----------
-    diffusion, stderr : float
-        GLS estimate of D and its standard error (model covariance at the fitted D, times
-        `scale_factor`).
-    intercept, intercept_stderr : float
-        b and its standard error (length^2).
-    ols_diffusion, ols_stderr, ols_stderr_naive : float
-        Ordinary least squares on the same points; its standard error with the model
-        covariance (honest) and with independent residuals (what a naive fit reports).
-    chi2 : float
-        Chi-square of the GLS residuals against the model covariance.
-    dof : int
-        Fit points minus 2.
-    scale_factor : float
-        What `stderr`, `intercept_stderr` and `cov_params` were multiplied by:
-        ``sqrt(chi2 / dof)`` when the chi-square rejects the model covariance at the
-        :data:`CHI2_SCALE_P` level (Birge ratio), else 1.
-    lags : ndarray
-        The lags (frames) used.
-    cov_params : ndarray, shape (2, 2)
-        Covariance of (slope, intercept).
-    """
-
-    diffusion: float
-    stderr: float
-    intercept: float
-    intercept_stderr: float
-    ols_diffusion: float
-    ols_stderr: float
-    ols_stderr_naive: float
-    chi2: float
-    dof: int
-    lags: np.ndarray
-    cov_params: np.ndarray
-    scale_factor: float = 1.0
-
-    @property
-    def chi2_pvalue(self) -> float:
-        """Upper-tail probability of `chi2` with `dof` degrees of freedom."""
-        # chi-square survival function (scipy.special: importing scipy.stats costs ~0.5 s)
-        return float(special.chdtrc(self.dof, self.chi2)) if self.dof > 0 else float("nan")
-
-
-def fit_msd(
-    msd: np.ndarray,
-    dt: float,
-    window: tuple[int, int],
-    *,
-    frames: Sequence[int],
-    counts: Sequence[float],
-) -> MSDFit:
-    """Generalized-least-squares fit of the MSD over a window of lags.
-
-    Parameters
-    ----------
-    msd : ndarray, shape (K + 1,)
-        Particle-averaged MSD (summed over the 3 coordinates) at lags 0..K, length^2.
-    dt : float
-        Time between frames.
-    window : (int, int)
-        First and last lag (frames), ``1 <= k0 < k1 <= K``.
-    frames, counts : sequences
-        Frames and particles of each independent replica behind `msd`.
-
-    Returns
-    -------
-    MSDFit
-
-    References
-    ----------
-    .. [1] Bullerjahn, von Bülow & Hummer, J. Chem. Phys. 153, 024116 (2020).
-    """
-    k0, k1 = window
-    lags = _fit_lags(int(k0), int(k1))
-    t = lags * dt
-    y = np.asarray(msd, dtype=np.float64)[lags]
-    shape = _combined_shape(lags, frames, counts)
-    x = np.column_stack([t, np.ones_like(t)])
-    # GLS on the correlation matrix (better conditioned than the covariance itself)
-    d = np.sqrt(np.diag(shape))
-    corr = shape / np.outer(d, d)
-    xs, ys = x / d[:, None], y / d
-    sol = np.linalg.solve(corr, np.column_stack([xs, ys]))
-    info = xs.T @ sol[:, :2]  # X' C^-1 X (shape units)
-    cov_shape = np.linalg.inv(info)
-    beta = cov_shape @ (xs.T @ sol[:, 2])
-    slope = float(beta[0])
-    diff = slope / (2 * _DIM)
-    s2 = 2.0 * abs(diff) * dt  # step variance of one coordinate
-    scale = _DIM * s2 * s2  # Cov[mean MSD] = d s^4 shape
-    cov_b = scale * cov_shape
-    r = ys - xs @ beta
-    chi2 = float(r @ np.linalg.solve(corr, r) / scale) if scale > 0 else float("nan")
-    # OLS on the same points, with honest (model) and naive (iid) standard errors
-    xtx_inv = np.linalg.inv(x.T @ x)
-    b_ols = xtx_inv @ (x.T @ y)
-    ols_cov = xtx_inv @ (x.T @ (scale * shape) @ x) @ xtx_inv
-    r_ols = y - x @ b_ols
-    dof = lags.size - 2
-    naive = float(np.sqrt(max(r_ols @ r_ols / max(dof, 1), 0.0) * xtx_inv[0, 0]))
-    factor = 1.0
-    if dof > 0 and np.isfinite(chi2) and special.chdtrc(dof, chi2) < CHI2_SCALE_P:
-        factor = math.sqrt(chi2 / dof)  # > 1 here: the Birge ratio
-        cov_b = cov_b * factor**2
-    return MSDFit(
-        diffusion=diff,
-        stderr=float(np.sqrt(cov_b[0, 0])) / (2 * _DIM),
-        intercept=float(beta[1]),
-        intercept_stderr=float(np.sqrt(cov_b[1, 1])),
-        ols_diffusion=float(b_ols[0]) / (2 * _DIM),
-        ols_stderr=float(np.sqrt(ols_cov[0, 0])) / (2 * _DIM),
-        ols_stderr_naive=naive / (2 * _DIM),
-        chi2=chi2,
-        dof=dof,
-        lags=lags,
-        cov_params=cov_b,
-        scale_factor=factor,
-    )
-
-
-def msd_interval(value: float, stderr: float, *, level: float = 0.95
-                 ) -> tuple[tuple[float, float], str]:
-    """Confidence interval of a GLS estimate of D whose standard error is proportional to D.
-
-    The model covariance of the MSD points scales as ``s^4 = (2 D dt)^2``: the GLS estimate
-    ``D_hat`` has standard deviation ``c D`` with ``c = stderr / D_hat`` fixed by the fit's
-    shape alone. Inverting ``|D_hat - D| <= z c D`` (rather than plugging ``D_hat`` into
-    the scale) gives ``[D_hat / (1 + z c), D_hat / (1 - z c)]``, exact for a normal
-    ``D_hat``; ``z`` is the normal quantile, not Student's t, because no scale is estimated
-    from the fit residuals (the covariance is a model, not a sample estimate).
-
-    Parameters
-    ----------
-    value, stderr : float
-        The estimate and its standard error (any unit).
-    level : float
-        Confidence level.
-
-    Returns
-    -------
-    (low, high) : tuple of float
-        The interval, same unit as `value`.
-    rule : str
-        How it was made. When ``z c >= 1/2`` (or the estimate is not positive) the inverted
-        interval is unbounded or nearly so, and the symmetric ``value +- z stderr`` is given.
-
-    Examples
-    --------
-    >>> (lo, hi), _ = msd_interval(1.0, 0.05)
-    >>> round(lo, 4), round(hi, 4)  # 1/(1 + 1.96 x 0.05), 1/(1 - 1.96 x 0.05)
-    (0.9107, 1.1086)
-    """
-    z = float(special.ndtri(0.5 + level / 2.0))
-    if value > 0 and stderr >= 0 and z * stderr < 0.5 * value:
-        c = stderr / value
-        return (value / (1.0 + z * c), value / (1.0 - z * c)), (
-            f"normal quantile {z:.4g}, inverted for a standard error proportional to D")
-    return (value - z * stderr, value + z * stderr), f"symmetric: value +- {z:.4g} stderr"
 
 
 # ---------------------------------------------------------------------------------------
@@ -571,54 +196,6 @@ def species_msd(
     drift = series.drift if remove_drift else None
     return _fft_msd(series.positions, max_lag=k, particles=idx, shift=drift, workers=workers,
                     chunk_size=max(1, _MSD_BLOCK_BYTES // (_DIM * length * 8)))
-
-
-def _species_vacf(series: PositionSeries, particles: np.ndarray, *, seg_len: int,
-                  max_lag: int, remove_drift: bool, workers: int | None = None
-                  ) -> np.ndarray:
-    """Sum over the coordinates of <v(0).v(t)> per time segment, averaged over `particles`.
-
-    Returns shape (n_frames // seg_len, max_lag + 1), internal velocity^2 units.
-    """
-    assert series.velocities is not None
-    n = series.n_frames
-    idx = np.sort(np.asarray(particles, dtype=np.intp))
-    dv = series.drift_velocity if remove_drift else None
-    n_seg = n // seg_len
-    total = np.zeros((n_seg, max_lag + 1))
-    for chunk in _chunks(idx, n):
-        v = np.asarray(series.velocities[: n_seg * seg_len, chunk, :], dtype=np.float64)
-        if dv is not None:
-            v -= dv[: n_seg * seg_len, None, :]
-        v = v.transpose(1, 2, 0).reshape(chunk.size, _DIM, n_seg, seg_len)
-        acf = autocorrelation(v, max_lag=max_lag, normalization="pairs",
-                              subtract_mean=False, workers=workers)
-        total += acf.sum(axis=(0, 1))
-    return total / idx.size
-
-
-def _trapezoid_running(c: np.ndarray, dt: float) -> np.ndarray:
-    out = np.zeros_like(c)
-    out[..., 1:] = np.cumsum(0.5 * (c[..., 1:] + c[..., :-1]), axis=-1) * dt
-    return out
-
-
-def _vacf_cutoff(cn: np.ndarray) -> tuple[int, bool]:
-    """Cutoff lag: twice the first k with |C(j)/C(0)| < level for every j in [k, 2k]."""
-    big = np.flatnonzero(np.abs(cn) >= VACF_LEVEL)
-    k_max = cn.size - 1
-    ks = np.arange(1, k_max // 2 + 1)
-    pos = np.searchsorted(big, ks)
-    nxt = np.where(pos < big.size, big[np.minimum(pos, big.size - 1)], np.iinfo(np.intp).max)
-    ok = np.flatnonzero(nxt > 2 * ks)
-    if ok.size == 0:
-        return k_max, False
-    return int(min(2 * ks[ok[0]], k_max)), True
-
-
-# ---------------------------------------------------------------------------------------
-# public estimators
-# ---------------------------------------------------------------------------------------
 
 
 @dataclass(frozen=True)
@@ -887,8 +464,10 @@ def analyse_diffusion(
             notes.append("no velocities in the trajectory: VACF cross-check not made")
         else:
             for name in names:
-                est, note = _vacf_estimate(slist, name, vacf_cutoff, remove_drift, workers,
-                                           force=vacf == "yes", common_warn=common_warn)
+                members = [s for s in slist if name in s.species_names]
+                est, note = vacf_estimate(members, name, vacf_cutoff, remove_drift, workers,
+                                          force=vacf == "yes", common_warn=common_warn,
+                                          diag=_common_diag(members, name, remove_drift))
                 if est is not None:
                     vacf_est.append(est)
                 if note:
@@ -1124,103 +703,3 @@ def _msd_result(fit: MSDFit, mean: np.ndarray, time: np.ndarray, dt: float, name
         warnings=tuple(dict.fromkeys(warn)),
     )
 
-
-def _vacf_estimate(slist: list[PositionSeries], name: str, cutoff: float | str,
-                   remove_drift: bool, workers: int | None, *, force: bool,
-                   common_warn: tuple[str, ...]) -> tuple[Estimate | None, str]:
-    u = slist[0].units
-    ds, ts = u.diffusion_scale, u.time_scale
-    dt = slist[0].dt
-    members = [s for s in slist if name in s.species_names]
-    longest = max(members, key=lambda s: s.n_frames)
-    idx = longest.species_indices(name)
-    # probe: up to 256 particles of the longest replica, whole series
-    probe_idx = idx[np.linspace(0, idx.size - 1, min(idx.size, 256)).astype(int)]
-    kmax = max(2, longest.n_frames // 2)
-    probe = _species_vacf(longest, probe_idx, seg_len=longest.n_frames, max_lag=kmax,
-                          remove_drift=remove_drift, workers=workers)[0]
-    if not probe[0] > 0:
-        return None, f"{name}: velocities are all zero; VACF cross-check not made"
-    cn = probe / probe[0]
-    warn = list(common_warn)
-    coarse = cn[1] < VACF_MIN_FIRST
-    if coarse:
-        text = (f"{name}: frames are too far apart for the VACF integral (the VACF falls to "
-                f"{cn[1]:.2g} of its initial value within one frame, {dt * ts:.3g} "
-                f"{u.time_unit})")
-        if not force:
-            return None, text + "; VACF cross-check not made"
-        warn.append(text + "; the VACF estimate is biased")
-    if cutoff == "auto":
-        kc, decayed = _vacf_cutoff(cn)
-        if not decayed:
-            warn.append(f"{name}: the VACF has not decayed within half the run; the integral "
-                        "is cut at the longest lag")
-        rule = f"twice the lag after which |VACF|/VACF(0) < {VACF_LEVEL:g}"
-    else:
-        kc = int(round(float(cutoff) / dt))
-        rule = "given"
-        if not 1 <= kc <= kmax:
-            raise InputError(
-                f"VACF cutoff {float(cutoff) * ts:.4g} {u.time_unit} is outside the lags "
-                f"(0, {kmax * dt * ts:.4g}]", expected="a cutoff shorter than half the run",
-                fix="choose a shorter cutoff")
-    kc = max(kc, 1)
-    shortest = min(s.n_frames for s in members)
-    seg_len = min(max(VACF_SEGMENT_FACTOR * kc, 2 * kc + 2), shortest)
-    lag = min(2 * kc, seg_len - 1)
-    if kc > lag:
-        raise InputError(f"{name}: the VACF cutoff is longer than half the run",
-                         path=members[0].source.path or None,
-                         expected="a run several times longer than the VACF cutoff",
-                         fix="choose a shorter VACF cutoff or run longer")
-    n_seg = sum(s.n_frames // seg_len for s in members)
-    # independent pieces: time segments, each split into blocks of particles (particles
-    # are independent up to O(1/N) momentum-conservation correlations), about 20 in all
-    n_part = [s.species_indices(name).size for s in members]
-    blocks = max(1, min(min(n_part), math.ceil(VACF_TARGET_PIECES / max(n_seg, 1))))
-    pieces, weights = [], []
-    for s in members:
-        if s.n_frames // seg_len == 0:
-            continue
-        for part in np.array_split(s.species_indices(name), blocks):
-            pieces.append(_species_vacf(s, part, seg_len=seg_len, max_lag=lag,
-                                        remove_drift=remove_drift, workers=workers))
-            weights.extend([part.size] * (s.n_frames // seg_len))
-    err_rule = (f"spread over {n_seg} time segment(s) of {seg_len} frames x {blocks} "
-                "block(s) of particles")
-    if len(weights) < 4:
-        text = f"{name}: too few particles and too short a run for a VACF error bar"
-        if force:
-            raise RunTooShortError(text, path=members[0].source.path or None,
-                                   fix="run longer (at least 4 segments of 10 VACF cutoffs)")
-        return None, text + "; VACF cross-check not made"
-    c = np.concatenate(pieces, axis=0)  # (pieces, lag + 1), sum over dims
-    run = _trapezoid_running(c, dt) / _DIM
-    vals = run[:, kc]
-    n = vals.size
-    w = np.asarray(weights, dtype=np.float64) / float(np.sum(weights))
-    value = float(w @ vals)
-    # standard error of a weighted mean of independent pieces (weights ~ 1/variance)
-    se = float(math.sqrt(np.sum(w**2 * (vals - value) ** 2) * n / (n - 1)))
-    q = float(special.stdtrit(n - 1, 0.975))  # Student t quantile
-    mean_c = w @ c
-    time = np.arange(lag + 1) * dt
-    diag = _common_diag(members, name, remove_drift)
-    diag.update(cutoff=kc * dt * ts, cutoff_rule=rule, pieces=n, stderr_method=err_rule,
-                vacf_first_lag=float(cn[1]),
-                vacf_unit="normalised")
-    curves = {
-        "time": time * ts,
-        "vacf": mean_c / mean_c[0] if mean_c[0] > 0 else mean_c,
-        "running_integral": (w @ run) * ds,
-        "running_integral_sd": np.sqrt(np.sum(w[:, None] ** 2 * (run - w @ run) ** 2, axis=0)
-                                       * n / (n - 1)) * ds,
-    }
-    return Estimate(
-        "self_diffusion", "vacf", value * ds, se * ds,
-        ((value - q * se) * ds, (value + q * se) * ds), u.diffusion_unit,
-        window=(0.0, kc * dt * ts), window_unit=u.time_unit, group=name,
-        n_independent=float(n), diagnostics=diag, curves=curves,
-        warnings=tuple(dict.fromkeys(warn)),
-    ), ""
