@@ -290,21 +290,19 @@ def _relative(e: Estimate) -> float:
 
 
 def _pieces(e: Estimate) -> float | None:
-    """Independent pieces behind the error bar, where the estimator made it from pieces."""
-    d = e.diagnostics
-    for key in ("pieces", "block_count"):
-        v = d.get(key)
-        if isinstance(v, (int, float)) and v and v > 1:
-            if key == "block_count" and not d.get("block_scale_factor", 0) > d.get(
-                    "fit_scale_factor", 1.0):
-                continue  # the blocks checked the error bar but did not set it
-            return float(v)
-    return None
+    """Independent pieces (segments, replicas) the estimator split the data into."""
+    v = e.diagnostics.get("pieces")
+    return float(v) if isinstance(v, (int, float)) and v > 1 else None
 
 
 def _log_se_variance(e: Estimate) -> float:
     """Variance of log(stderr) of one estimate (see the module notes)."""
+    d = e.diagnostics
     n = _pieces(e)
+    blocks = d.get("block_count")
+    if n is None and isinstance(blocks, (int, float)) and blocks > 1 and \
+            d.get("block_scale_factor", 0) > max(d.get("fit_scale_factor", 1.0), 1.0):
+        n = float(blocks)  # the error bar was set by the scatter of time blocks
     if n is not None:
         return 1.0 / (2.0 * (n - 1.0))
     # a model-based error bar scales with the value: it scatters as the value does
@@ -397,16 +395,21 @@ def measure_scaling(
         why = (f"the Green–Kubo cutoff grows with the run (as T^{growth:.2f})" if grows
                else f"the shorter parts do not follow 1/sqrt(T) (more than {k_sig:.2g} "
                     "standard errors away)")
-        msg = (f"error measured to fall as T^-{p_meas:.2f} +- {p_se:.2f} over "
+        msg = (f"error measured to scale as {_law(p_meas)} +- {p_se:.2f} over "
                f"{len(pts)} lengths of the run, not as 1/sqrt(T): {why}; projected with "
-               f"T^-{used:.2f}")
+               f"{_law(used)}")
         return Scaling(used, "measured", p_meas, p_se, times, rs, growth, msg)
-    msg = (f"error falls as 1/sqrt(T) within the data's precision (measured T^-{p_meas:.2f} "
-           f"+- {p_se:.2f} over {len(pts)} lengths of the run)")
+    msg = (f"error falls as 1/sqrt(T) within the data's precision (measured "
+           f"{_law(p_meas)} +- {p_se:.2f} over {len(pts)} lengths of the run)")
     return Scaling(0.5, "checked", p_meas, p_se, times, rs, growth, msg)
 
 
 # ---- checks -----------------------------------------------------------------------------
+
+def _law(p: float) -> str:
+    """``T^-0.46`` for p = 0.46, ``T^+0.18`` for p = -0.18."""
+    return f"T^{-p:+.2f}"
+
 
 def _f(x: float) -> str:
     return f"{x:.3g}"

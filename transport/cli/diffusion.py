@@ -11,11 +11,15 @@ from ._shared import (
     check_distinct,
     check_outputs,
     check_plot_path,
+    exit_for_verdicts,
     finish,
     json_option,
+    parse_target_option,
     parse_time,
     plot_option,
     quiet,
+    target_options,
+    verdict_only,
 )
 
 
@@ -76,6 +80,7 @@ def _diffusion_window(value: str, scale: float) -> tuple[float, float] | str:
               help="Remove the centre-of-mass drift of the whole system.")
 @click.option("--scratch", type=click.Path(file_okay=False), default=None,
               help="Folder for the scratch file used when positions exceed the memory.")
+@target_options
 @json_option
 @plot_option
 @click.pass_context
@@ -83,16 +88,39 @@ def diffusion(ctx: click.Context, topology: str, trajectories: tuple[str, ...], 
               group_by: str, unwrap: str, fit_window: str, skip: str, units: str | None,
               timestep: float | None, frame_interval: float | None,
               temperature: float | None, continuation: bool, vacf: str, remove_drift: bool,
-              scratch: str | None, json_path: str | None, plot_path: str | None) -> None:
+              scratch: str | None, target: str | None, strict: bool, json_path: str | None,
+              plot_path: str | None) -> None:
     """Self-diffusion from TOPOLOGY and TRAJECTORIES (several files = replicas, or parts of
     one run with --continue), per species, with the MSD fitted by generalized least squares
-    and the VACF as a cross-check."""
+    and the VACF as a cross-check.
+
+    With --target, a run-length verdict follows the results for each species."""
+    run_diffusion(ctx, topology, trajectories, select=select, group_by=group_by,
+                  unwrap=unwrap, fit_window=fit_window, skip=skip, units=units,
+                  timestep=timestep, frame_interval=frame_interval, temperature=temperature,
+                  continuation=continuation, vacf=vacf, remove_drift=remove_drift,
+                  scratch=scratch, target=target, strict=strict, json_path=json_path,
+                  plot_path=plot_path)
+
+
+def run_diffusion(ctx: click.Context, topology: str, trajectories: tuple[str, ...], *,
+                  select: str = "all", group_by: str = "atom", unwrap: str = "auto",
+                  fit_window: str = "auto", skip: str = "0", units: str | None = None,
+                  timestep: float | None = None, frame_interval: float | None = None,
+                  temperature: float | None = None, continuation: bool = False,
+                  vacf: str = "auto", remove_drift: bool = True, scratch: str | None = None,
+                  target: str | None = None, strict: bool = False,
+                  json_path: str | None = None, plot_path: str | None = None,
+                  default_target: str | None = None, verdicts_only: bool = False) -> None:
+    """The body of ``transport diffusion`` (also run by ``transport check``)."""
     from .._progress import want_progress
     from ..diffusion import analyse_diffusion
+    from ..errors import RunTooShortError
     from ..io.trajectory import load_trajectory
     from ..report.text import format_estimates
     from ..units import get_unit_system
 
+    target_f = parse_target_option(target, strict, default=default_target)
     check_plot_path(plot_path)
     if units is not None:
         try:
@@ -113,9 +141,30 @@ def diffusion(ctx: click.Context, topology: str, trajectories: tuple[str, ...], 
         velocities=vacf != "no" or temperature is None,
         progress=want_progress(quiet(ctx)),
     )
-    result = analyse_diffusion(series, fit_window=window,  # type: ignore[arg-type]
-                               remove_drift=remove_drift, vacf=vacf)  # type: ignore[arg-type]
+    settings = {"topology": topology, "select": select, "group_by": group_by,
+                "unwrap": unwrap, "unwrap_used": [s.unwrap for s in series],
+                "fit_window": fit_window, "skip": skip, "units": series[0].units.name,
+                "timestep": timestep, "frame_interval": frame_interval,
+                "temperature": temperature, "continue": continuation, "vacf": vacf,
+                "remove_drift": remove_drift, "target": target_f}
+    try:
+        result = analyse_diffusion(series, fit_window=window,  # type: ignore[arg-type]
+                                   remove_drift=remove_drift, vacf=vacf)  # type: ignore[arg-type]
+    except RunTooShortError as exc:
+        if target_f is None:
+            raise
+        verdict_only(ctx, "diffusion", exc, series=series, target=target_f, strict=strict,
+                     method="msd_gls", json_path=json_path, settings=settings,
+                     inputs=[src for s in series for src in s.sources])
+        return
     est = result.estimates
+    verdicts = ()
+    if target_f is not None:
+        from ..run_length import diffusion_verdicts
+
+        verdicts = diffusion_verdicts(series, est, target=target_f,
+                                      fit_window=window,  # type: ignore[arg-type]
+                                      remove_drift=remove_drift)
     n = len(trajectories)
     kind = ("consecutive parts of one run" if continuation else "independent replicas")
     title = f"self-diffusion from {n} trajectory file(s)" + (f" ({kind})" if n > 1 else "")
@@ -125,13 +174,15 @@ def diffusion(ctx: click.Context, topology: str, trajectories: tuple[str, ...], 
 
         return diffusion_figure(result.msd, result.vacf)
 
-    settings = {"topology": topology, "select": select, "group_by": group_by,
-                "unwrap": unwrap, "unwrap_used": [s.unwrap for s in series],
-                "fit_window": fit_window, "skip": skip, "units": series[0].units.name,
-                "timestep": timestep, "frame_interval": frame_interval,
-                "temperature": temperature, "continue": continuation, "vacf": vacf,
-                "remove_drift": remove_drift}
+    text = "" if verdicts_only else format_estimates(est, title=title, notes=result.notes)
+    if target_f is not None:
+        from ..report.verdicts import format_verdicts
+
+        text += ("" if verdicts_only else "\n\n") + format_verdicts(verdicts)
     finish(ctx, "diffusion", json_path=json_path, plot_path=plot_path, figure=figure,
-            inputs=[src for s in series for src in s.sources], settings=settings,
-            results=est, warnings=result.notes,
-            text=format_estimates(est, title=title, notes=result.notes))
+           inputs=[src for s in series for src in s.sources], settings=settings,
+           results=est, warnings=result.notes,
+           extra=None if target_f is None else
+           {"verdicts": [v.to_record() for v in verdicts]},
+           text=text)
+    exit_for_verdicts(ctx, verdicts, strict)

@@ -54,11 +54,27 @@ def viscosity(ctx: click.Context, files: tuple[str, ...], units: str | None,
 
     With --target, a run-length verdict follows the results: whether the run reaches the
     target precision and, if not, how much longer (or how many more replicas)."""
+    run_viscosity(ctx, files, units=units, timestep=timestep, temperature=temperature,
+                  volume=volume, run=run, method=method, cutoff=cutoff, fit_window=fit_window,
+                  max_lag=max_lag, skip=skip, components=components, target=target,
+                  strict=strict, json_path=json_path, plot_path=plot_path)
+
+
+def run_viscosity(ctx: click.Context, files: tuple[str, ...], *, units: str | None = None,
+                  timestep: float | None = None, temperature: float | None = None,
+                  volume: float | None = None, run: str | None = None,
+                  method: str = "green-kubo", cutoff: str = "auto", fit_window: str = "auto",
+                  max_lag: str | None = None, skip: str = "auto", components: str = "all",
+                  target: str | None = None, strict: bool = False,
+                  json_path: str | None = None, plot_path: str | None = None,
+                  default_target: str | None = None, verdicts_only: bool = False) -> None:
+    """The body of ``transport viscosity`` (also run by ``transport check``, which sets a
+    default target and prints only the verdicts)."""
     from ..errors import RunTooShortError
     from ..report.text import format_estimates
     from ..viscosity import analyse_viscosity
 
-    target_f = parse_target_option(target, strict)
+    target_f = parse_target_option(target, strict, default=default_target)
     check_plot_path(plot_path)
     check_outputs(files, json=json_path, plot=plot_path)
     cut_t = parse_time(cutoff, "--cutoff", positive=True)
@@ -115,11 +131,11 @@ def viscosity(ctx: click.Context, files: tuple[str, ...], units: str | None,
 
         return viscosity_figure(result.green_kubo, result.einstein)
 
-    text = format_estimates(est, title=title)
+    text = "" if verdicts_only else format_estimates(est, title=title)
     if target_f is not None:
         from ..report.verdicts import format_verdicts
 
-        text += "\n\n" + format_verdicts(verdicts)
+        text += ("" if verdicts_only else "\n\n") + format_verdicts(verdicts)
     finish(ctx, "viscosity", json_path=json_path, plot_path=plot_path, figure=figure,
            inputs=[s.source for s in series], settings=settings, results=est,
            extra=None if target_f is None else
