@@ -1,0 +1,268 @@
+"""Run-length verdicts against known answers.
+
+Three kinds of truth:
+
+* algebra: the projection of a power law whose exponent is set by construction;
+* synthetic stress (Ornstein–Uhlenbeck modes, :mod:`transport.synthetic`; its Green–Kubo
+  viscosity is exact) and Brownian particles (exact D): a run too short and a run long enough
+  for a target, and the projection made from a short run compared with the error bar a run
+  four times longer actually gets (over seeds);
+* the checks of the verdict on estimates whose diagnostics are set by hand.
+
+Seeds are explicit ``np.random.Generator`` seeds; none was chosen by looking at the result
+(0..7 for the projections, 100+ for too short / long enough).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from transport.convergence import measure_scaling, parse_target, run_verdict, too_short_verdict
+from transport.diffusion import analyse_diffusion
+from transport.errors import RunTooShortError
+from transport.estimate import Estimate
+from transport.io.trajectory import positions_from_arrays
+from transport.run_length import diffusion_verdicts, viscosity_verdicts
+from transport.series import StressSeries
+from transport.synthetic import OUStressModel, brownian_positions
+from transport.viscosity import analyse_viscosity
+
+# ---- the interface of a target ----------------------------------------------------------
+
+
+@pytest.mark.parametrize("text, value", [("5%", 0.05), ("0.05", 0.05), (" 12.5% ", 0.125),
+                                         (0.2, 0.2)])
+def test_parse_target(text, value):
+    assert parse_target(text) == pytest.approx(value, rel=1e-12)
+
+
+@pytest.mark.parametrize("text", ["0", "100%", "1.5", "-5%", "abc", "nan", "5 %%"])
+def test_parse_target_refuses(text):
+    with pytest.raises(ValueError):
+        parse_target(text)
+
+
+# ---- projection algebra ---------------------------------------------------------------------
+
+def _est(value, stderr, *, method="green_kubo", quantity="shear_viscosity", window=None,
+         diagnostics=None, group=None, curves=None):
+    return Estimate(quantity, method, value, stderr, (value - 2 * stderr, value + 2 * stderr),
+                    "mPa s", window=window, window_unit="ps", group=group,
+                    diagnostics=diagnostics or {}, curves=curves or {})
+
+
+def test_projection_with_one_over_sqrt_t():
+    # r = 10% for a 5% target: 1/sqrt(T) needs 4x the total time, so 3x more per run; with
+    # 2 replicas of 100 ps that is 300 ps more each, or 6 more replicas of 100 ps. At 10 s
+    # of wall clock per ps (the log's speed): 2 x 300 ps x 10 s = 6000 s = 1.667 h.
+    v = run_verdict(_est(2.0, 0.2, method="plain"), target=0.05, run_times=[100.0, 100.0],
+                    seconds_per_time=10.0)
+    assert not v.long_enough
+    assert v.relative_stderr == pytest.approx(0.1)
+    assert v.additional_time == pytest.approx(300.0, rel=1e-12)
+    assert v.additional_replicas == 6
+    assert v.wall_clock_hours == pytest.approx(6000.0 / 3600.0, rel=1e-12)
+    assert v.wall_clock_hours_replicas == pytest.approx(6000.0 / 3600.0, rel=1e-12)
+    assert v.scaling.rule == "assumed" and v.scaling.exponent == 0.5
+    rec = v.to_record()
+    for key in ("quantity", "group", "long_enough", "relative_stderr",
+                "target_relative_stderr", "additional_time", "time_unit",
+                "additional_replicas", "wall_clock_hours", "reasons", "checks"):
+        assert key in rec
+    # met target: nothing more
+    ok = run_verdict(_est(2.0, 0.05, method="plain"), target=0.05, run_times=[100.0])
+    assert ok.long_enough and ok.additional_time == 0 and ok.additional_replicas == 0
+    assert ok.wall_clock_hours is None  # no speed given
+
+
+def _gk_part(value, se, cutoff):
+    d = {"pieces": 20, "cutoff": cutoff, "cutoff_rule": "replica spread reaches 0.4 of the "
+         "mean", "still_rising": False}
+    return _est(value, se, window=(0.0, cutoff), diagnostics=d)
+
+
+def test_measured_exponent_replaces_one_half_when_the_cutoff_grows():
+    # Exact power law by construction: stderr = 0.1 (T/400)^-0.25, cutoff proportional to T
+    # (the time decomposition's behaviour in one long run). The fit recovers p = 0.25
+    # exactly; the growing cutoff makes it the exponent used. A 5% target from r = 10%
+    # then needs (0.1/0.05)^(1/0.25) = 16x the time: 15 x 400 ps more.
+    T = 400.0
+    parts = [(f, _gk_part(3.0, 0.3 * f ** -0.25, 4.0 * f)) for f in (0.25, 0.25, 0.25, 0.25,
+                                                                      0.5, 0.5)]
+    full = _gk_part(3.0, 0.3, 4.0)
+    s = measure_scaling(full, T, parts)
+    assert s.measured == pytest.approx(0.25, abs=1e-12)
+    assert s.window_growth == pytest.approx(1.0, abs=1e-12)
+    assert s.rule == "measured" and s.exponent == pytest.approx(0.25, abs=1e-12)
+    v = run_verdict(full, target=0.05, run_times=[T], parts=parts)
+    assert v.additional_time == pytest.approx(15 * T, rel=1e-9)
+    assert "grows with the run" in " ".join(v.reasons)
+
+
+def test_exact_one_over_sqrt_t_is_checked_not_replaced():
+    parts = [(f, _est(3.0, 0.3 * f ** -0.5, method="plain")) for f in (0.25, 0.5)]
+    s = measure_scaling(_est(3.0, 0.3, method="plain"), 100.0, parts)
+    assert s.rule == "checked" and s.exponent == 0.5
+    assert s.measured == pytest.approx(0.5, abs=1e-12)
+
+
+def test_exponent_above_one_half_is_not_used():
+    # a steeper fall than independent sampling gives is not promised (module notes)
+    parts = [(f, _gk_part(3.0, 0.3 * f ** -1.5, 4.0 * f)) for f in (0.25, 0.5)]
+    s = measure_scaling(_gk_part(3.0, 0.3, 4.0), 100.0, parts)
+    assert s.measured == pytest.approx(1.5, abs=1e-12) and s.exponent == 0.5
+
+
+def test_parts_with_fewer_pieces_are_another_regime():
+    few = _est(3.0, 0.9, diagnostics={"pieces": 8})
+    s = measure_scaling(_est(3.0, 0.3, diagnostics={"pieces": 20}), 100.0, [(0.25, few)])
+    assert s.rule == "assumed" and "fewer independent pieces" in s.message
+
+
+# ---- checks on hand-made diagnostics ------------------------------------------------------
+
+def test_still_rising_integral_is_not_long_enough_whatever_the_precision():
+    d = {"pieces": 20, "cutoff": 5.0, "still_rising": True, "decorrelation_time": 0.5,
+         "skipped": [0.0], "segment_length": 20.0}
+    v = run_verdict(_est(3.0, 0.03, window=(0.0, 5.0), diagnostics=d), target=0.05,
+                    run_times=[400.0])
+    assert v.relative_stderr == pytest.approx(0.01)
+    assert not v.long_enough
+    assert "keeps rising" in v.main_reason
+    names = {c.name: c for c in v.checks}
+    assert names["levels_off"].passed is False and names["precision"].passed
+
+
+def test_short_run_against_decorrelation_asks_for_the_length_rule():
+    # 30 ps of data with a 0.5 ps decorrelation time: 60 decorrelation times, below the
+    # 100 the checks ask for (10 pieces of 10): 50 ps of data are needed, 20 ps more.
+    d = {"pieces": 20, "cutoff": 1.0, "still_rising": False, "decorrelation_time": 0.5,
+         "skipped": [0.0]}
+    v = run_verdict(_est(3.0, 0.03, window=(0.0, 1.0), diagnostics=d), target=0.05,
+                    run_times=[30.0])
+    assert not v.long_enough
+    assert v.additional_time == pytest.approx(20.0, rel=1e-12)
+
+
+def test_long_transient_is_a_caution():
+    d = {"pieces": 20, "cutoff": 1.0, "still_rising": False, "decorrelation_time": 0.1,
+         "skipped": [300.0]}
+    v = run_verdict(_est(3.0, 0.03, window=(0.0, 1.0), diagnostics=d), target=0.05,
+                    run_times=[200.0])
+    c = {c.name: c for c in v.checks}["transient"]
+    assert c.passed is False and not c.blocking and c.value == pytest.approx(0.6)
+    assert v.long_enough  # a caution, not a blocker
+
+
+def test_too_short_error_becomes_a_verdict():
+    err = RunTooShortError("Green–Kubo: 1 piece", extra_time=40.0, time_unit="ps")
+    v = too_short_verdict(err, quantity="shear_viscosity", method="green_kubo", target=0.05,
+                          replicas=2)
+    assert not v.long_enough and math.isnan(v.relative_stderr)
+    assert v.additional_time == pytest.approx(20.0)  # the total extra, shared by 2 replicas
+    assert "first error bar" in v.reasons[1]
+
+
+# ---- synthetic stress: known viscosity ------------------------------------------------------
+
+V, KT, ETA, DT = 1000.0, 1.0, 3.0, 0.01
+# two OU modes, 0.01 and 0.05 time units: the decorrelation time the estimator finds is about
+# 0.12, so a quarter of 12,000 samples still holds 20 pieces of 10 decorrelation times
+MODEL = OUStressModel.for_viscosity(ETA, V, KT, times=[0.01, 0.05], fractions=[0.3, 0.7])
+
+
+def _stress(rng, n, k=1):
+    return [StressSeries(MODEL.sample(n, DT, rng), DT, V, KT, "lj") for _ in range(k)]
+
+
+def test_green_kubo_too_short_and_long_enough():
+    # Target 5%. 4,000 samples (40 time units) give r ~ 10% (measured on other seeds:
+    # 7-12%); 4 replicas of 25,000 samples give r ~ 3% (2-4%): well on either side of 5%.
+    short = _stress(np.random.default_rng(100), 4_000)
+    g = analyse_viscosity(short, skip=None).green_kubo
+    v = viscosity_verdicts(short, [g], target=0.05)[0]
+    assert not v.long_enough and v.additional_time > 0
+    long = _stress(np.random.default_rng(101), 25_000, k=4)
+    g = analyse_viscosity(long, skip=None).green_kubo
+    v = viscosity_verdicts(long, [g], target=0.05)[0]
+    assert v.long_enough, v.reasons
+    assert abs(g.value - ETA) < 4 * g.stderr  # the estimate itself is right (4 sd)
+
+
+def test_green_kubo_projection_holds_on_a_run_four_times_longer():
+    # Issue requirement: over seeds, the projection from a short run predicts the standard
+    # error a run 4x longer actually gets within 25% (median). The projected relative error
+    # is r (4)^-p with the exponent the verdict uses; the actual is that of the longer run
+    # (same seed, the short run its first quarter). In one long run the time decomposition
+    # keeps 20 pieces and lengthens them, so the cutoff grows with T and the error falls
+    # slower than 1/sqrt(T) (measured here: about T^-0.35; 1/sqrt(T) would predict 23% too
+    # small an error). Noise: each error bar from 20 pieces scatters by ~25% (jackknife of a
+    # fit), so one ratio scatters by ~0.3 in log; the median of 8 by ~0.13: 25% is ~1.8 sd.
+    ratios, rules = [], []
+    n = 12_000
+    for seed in range(8):
+        rng = np.random.default_rng(seed)
+        p = MODEL.sample(4 * n, DT, rng)
+        short = [StressSeries(np.ascontiguousarray(p[:, :n]), DT, V, KT, "lj")]
+        g = analyse_viscosity(short, skip=None).green_kubo
+        v = viscosity_verdicts(short, [g], target=0.01)[0]
+        gl = analyse_viscosity([StressSeries(p, DT, V, KT, "lj")], skip=None).green_kubo
+        predicted = v.relative_stderr * 4.0 ** -v.scaling.exponent
+        ratios.append(predicted / (gl.stderr / abs(gl.value)))
+        rules.append(v.scaling.rule)
+    assert 0.75 <= float(np.median(ratios)) <= 1.25, ratios
+    # the verdict says the error does not follow 1/sqrt(T) (cutoff growing), in most seeds
+    assert rules.count("measured") >= 6, rules
+
+
+# ---- Brownian particles: known D ----------------------------------------------------------
+
+D_TRUE, DT_B, BOX = 0.05, 0.1, 5.0
+
+
+def _brownian(rng, n_frames, n_part=20):
+    x = brownian_positions(n_frames, n_part, DT_B, D_TRUE, BOX, rng)
+    return positions_from_arrays(x, BOX, DT_B)
+
+
+def test_diffusion_too_short_and_long_enough():
+    # Target 1.5%. 20 particles: r ~ 2.2% at 250 frames, ~ 1.1% at 1000 frames (measured on
+    # other seeds). The particle spacing (125/20)^(1/3) = 1.8 is passed within the window
+    # (rms at the window end 1.4 and 2.7): the short run fails twice over.
+    s = _brownian(np.random.default_rng(110), 250)
+    e = analyse_diffusion(s, remove_drift=False, vacf="no").msd
+    v = diffusion_verdicts(s, e, target=0.015, remove_drift=False)[0]
+    assert not v.long_enough and v.additional_time > 0
+    s = _brownian(np.random.default_rng(111), 1000)
+    e = analyse_diffusion(s, remove_drift=False, vacf="no").msd
+    v = diffusion_verdicts(s, e, target=0.015, remove_drift=False)[0]
+    assert v.long_enough, v.reasons
+    assert {c.name for c in v.checks} >= {"diffusive_regime", "window_use", "rms_displacement",
+                                          "precision"}
+
+
+def test_diffusion_projection_and_stated_time_hold():
+    # The MSD error falls as 1/sqrt(T) (GLS over a window that grows with the run; checked
+    # here on the parts). (1) Projection to 4x: median ratio within 25% over 8 seeds.
+    # (2) The additional time stated for a 1% target, actually simulated, gives an error
+    # within 25% of 1% (median over the same seeds). Noise per ratio ~15-20% (block and
+    # Birge factors of 1-1.4 measured in these runs).
+    ratios, reached = [], []
+    for seed in range(8):
+        rng = np.random.default_rng(seed)
+        x = brownian_positions(4000, 20, DT_B, D_TRUE, BOX, rng)
+        s = positions_from_arrays(x[:1000], BOX, DT_B)
+        e = analyse_diffusion(s, remove_drift=False, vacf="no").msd
+        v = diffusion_verdicts(s, e, target=0.01, remove_drift=False)[0]
+        full = positions_from_arrays(x, BOX, DT_B)
+        el = analyse_diffusion(full, remove_drift=False, vacf="no").msd[0]
+        ratios.append(v.relative_stderr * 4.0 ** -v.scaling.exponent / (el.stderr / el.value))
+        frames = min(4000, 1000 + int(round(v.additional_time / DT_B)))
+        em = analyse_diffusion(positions_from_arrays(x[:frames], BOX, DT_B),
+                               remove_drift=False, vacf="no").msd[0]
+        reached.append(em.stderr / em.value / 0.01)
+    assert 0.75 <= float(np.median(ratios)) <= 1.25, ratios
+    assert 0.75 <= float(np.median(reached)) <= 1.25, reached
