@@ -726,6 +726,7 @@ def too_short_verdict(
     target: float,
     replicas: int = 1,
     group: str | None = None,
+    seconds_per_time: float | None = None,
 ) -> Verdict:
     """The verdict on data too short for any estimate (a ``RunTooShortError``).
 
@@ -740,6 +741,8 @@ def too_short_verdict(
         Target relative standard error.
     replicas : int
         Number of replicas given.
+    seconds_per_time : float, optional
+        Wall-clock seconds per unit of simulated time at the logged speed.
 
     Returns
     -------
@@ -768,8 +771,9 @@ def too_short_verdict(
         quantity=quantity, method=method, group=group, long_enough=False,
         relative_stderr=float("nan"), target_relative_stderr=float(target),
         additional_time=per_run, time_unit=unit, additional_replicas=None,
-        wall_clock_hours=None, wall_clock_hours_replicas=None, run_time=float("nan"),
-        replicas=reps,
+        wall_clock_hours=None if per_run is None or not seconds_per_time else
+        per_run * reps * seconds_per_time / 3600.0,
+        wall_clock_hours_replicas=None, run_time=float("nan"), replicas=reps,
         scaling=Scaling(0.5, "assumed", message="no error bar: the scaling was not checked"),
         reasons=(msg, first), checks=(check,),
     )

@@ -24,7 +24,7 @@ from .errors import InputError
 from .estimate import Estimate
 from .series import PositionSeries, StressSeries
 
-__all__ = ["PREFIX_FRACTIONS", "diffusion_verdicts", "viscosity_verdicts"]
+__all__ = ["PREFIX_FRACTIONS", "diffusion_verdicts", "engine_speed", "viscosity_verdicts"]
 
 #: Fractions of the analysed time re-analysed to check how the error falls with run length
 #: (a factor 4 in length: enough lever arm for an exponent, each part still holding the
@@ -118,22 +118,30 @@ def viscosity_verdicts(
             except InputError:  # too short to analyse (RunTooShortError is one): left out
                 continue
             results.append((f, res.estimates))
-    speed = _speed([s.source.wall_seconds_per_time for s in slist], run_times, ts)
+    speed = engine_speed(slist)
     return tuple(
         run_verdict(e, target=target, run_times=run_times, parts=pre,
                     seconds_per_time=speed)
         for e, pre in zip(estimates, _prefix_estimates(estimates, results), strict=True))
 
 
-def _speed(per_internal: Sequence[float | None], run_times: Sequence[float],
-           time_scale: float) -> float | None:
-    """Wall-clock seconds per reported time unit, weighted by run time; None if unknown."""
-    if not per_internal or any(w is None or not w > 0 for w in per_internal):
+def engine_speed(series: Sequence[StressSeries] | Sequence[PositionSeries]) -> float | None:
+    """Wall-clock seconds per reported time unit (ps, or tau) the engine needed, from the
+    run times its logs report (:attr:`transport.series.Source.wall_seconds_per_time`),
+    weighted by each replica's length; None when any input does not say (trajectories)."""
+    speeds, weights = [], []
+    for s in series:
+        srcs = (s.source,) if isinstance(s, StressSeries) else s.sources
+        w = [src.wall_seconds_per_time for src in srcs]
+        if not w or any(x is None or not x > 0 for x in w):
+            return None
+        speeds.append(sum(w) / len(w))  # type: ignore[arg-type]
+        weights.append(s.n if isinstance(s, StressSeries) else s.n_frames)
+    if not speeds:
         return None
-    total = sum(run_times)
-    # per internal unit -> per reported unit (ps or tau): divide by the time scale
-    mean = sum(w * t for w, t in zip(per_internal, run_times, strict=True))  # type: ignore[operator]
-    return mean / total / time_scale if total > 0 else None
+    ts = series[0].units.time_scale
+    # per internal unit (s, or tau) -> per reported unit: divide by the time scale
+    return sum(a * b for a, b in zip(speeds, weights, strict=True)) / sum(weights) / ts
 
 
 def _positions_part(s: PositionSeries, start: int, n: int) -> PositionSeries:

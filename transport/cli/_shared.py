@@ -263,17 +263,19 @@ def exit_for_verdicts(ctx: click.Context, verdicts: Any, strict: bool) -> None:
 
 def verdict_only(ctx: click.Context, command: str, error: Any, *, series: Any,
                  target: float, strict: bool, method: str, json_path: str | None,
-                 settings: dict[str, Any], inputs: Any = None) -> None:
+                 settings: dict[str, Any], inputs: Any = None,
+                 quantity_of: str = "viscosity") -> None:
     """Finish a command whose data were too short for any estimate, under ``--target``:
     the verdict (not long enough, and the least time that gives an error bar) instead of
     an error; exit code 0, or 3 with ``--strict``."""
     from ..convergence import too_short_verdict
     from ..report.verdicts import format_verdicts
+    from ..run_length import engine_speed
 
-    quantity = "shear_viscosity" if command == "viscosity" else "self_diffusion"
+    quantity = "shear_viscosity" if quantity_of == "viscosity" else "self_diffusion"
     meth = {"green-kubo": "green_kubo", "both": "green_kubo"}.get(method, method)
     v = too_short_verdict(error, quantity=quantity, method=meth, target=target,
-                          replicas=len(series))
+                          replicas=len(series), seconds_per_time=engine_speed(series))
     srcs = inputs if inputs is not None else [s.source for s in series]
     finish(ctx, command, json_path=json_path, inputs=srcs, settings=settings, results=[],
            warnings=[error.one_line()], extra={"verdicts": [v.to_record()]},

@@ -66,7 +66,7 @@ def check(ctx: click.Context, files: tuple[str, ...], target: str | None, strict
     if is_stress:
         run_viscosity(ctx, files, units=units, timestep=timestep, temperature=temperature,
                       run=run, target=target, strict=strict, json_path=json_path,
-                      default_target=DEFAULT_TARGET, verdicts_only=True)
+                      default_target=DEFAULT_TARGET, verdicts_only=True, command="check")
         return
     if len(files) < 2:
         raise InputError(
@@ -80,4 +80,4 @@ def check(ctx: click.Context, files: tuple[str, ...], target: str | None, strict
     run_diffusion(ctx, files[0], files[1:], select=select, group_by=group_by, units=units,
                   timestep=timestep, temperature=temperature, continuation=continuation,
                   target=target, strict=strict, json_path=json_path,
-                  default_target=DEFAULT_TARGET, verdicts_only=True)
+                  default_target=DEFAULT_TARGET, verdicts_only=True, command="check")

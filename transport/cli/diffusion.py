@@ -111,7 +111,8 @@ def run_diffusion(ctx: click.Context, topology: str, trajectories: tuple[str, ..
                   vacf: str = "auto", remove_drift: bool = True, scratch: str | None = None,
                   target: str | None = None, strict: bool = False,
                   json_path: str | None = None, plot_path: str | None = None,
-                  default_target: str | None = None, verdicts_only: bool = False) -> None:
+                  default_target: str | None = None, verdicts_only: bool = False,
+                  command: str = "diffusion") -> None:
     """The body of ``transport diffusion`` (also run by ``transport check``)."""
     from .._progress import want_progress
     from ..diffusion import analyse_diffusion
@@ -153,7 +154,8 @@ def run_diffusion(ctx: click.Context, topology: str, trajectories: tuple[str, ..
     except RunTooShortError as exc:
         if target_f is None:
             raise
-        verdict_only(ctx, "diffusion", exc, series=series, target=target_f, strict=strict,
+        verdict_only(ctx, command, exc, quantity_of="diffusion", series=series,
+                     target=target_f, strict=strict,
                      method="msd_gls", json_path=json_path, settings=settings,
                      inputs=[src for s in series for src in s.sources])
         return
@@ -179,7 +181,7 @@ def run_diffusion(ctx: click.Context, topology: str, trajectories: tuple[str, ..
         from ..report.verdicts import format_verdicts
 
         text += ("" if verdicts_only else "\n\n") + format_verdicts(verdicts)
-    finish(ctx, "diffusion", json_path=json_path, plot_path=plot_path, figure=figure,
+    finish(ctx, command, json_path=json_path, plot_path=plot_path, figure=figure,
            inputs=[src for s in series for src in s.sources], settings=settings,
            results=est, warnings=result.notes,
            extra=None if target_f is None else

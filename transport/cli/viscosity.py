@@ -67,7 +67,8 @@ def run_viscosity(ctx: click.Context, files: tuple[str, ...], *, units: str | No
                   max_lag: str | None = None, skip: str = "auto", components: str = "all",
                   target: str | None = None, strict: bool = False,
                   json_path: str | None = None, plot_path: str | None = None,
-                  default_target: str | None = None, verdicts_only: bool = False) -> None:
+                  default_target: str | None = None, verdicts_only: bool = False,
+                  command: str = "viscosity") -> None:
     """The body of ``transport viscosity`` (also run by ``transport check``, which sets a
     default target and prints only the verdicts)."""
     from ..errors import RunTooShortError
@@ -112,7 +113,8 @@ def run_viscosity(ctx: click.Context, files: tuple[str, ...], *, units: str | No
     except RunTooShortError as exc:
         if target_f is None:
             raise
-        verdict_only(ctx, "viscosity", exc, series=series, target=target_f, strict=strict,
+        verdict_only(ctx, command, exc, quantity_of="viscosity", series=series,
+                     target=target_f, strict=strict,
                      method=method, json_path=json_path, settings=settings)
         return
     est = result.estimates
@@ -136,7 +138,7 @@ def run_viscosity(ctx: click.Context, files: tuple[str, ...], *, units: str | No
         from ..report.verdicts import format_verdicts
 
         text += ("" if verdicts_only else "\n\n") + format_verdicts(verdicts)
-    finish(ctx, "viscosity", json_path=json_path, plot_path=plot_path, figure=figure,
+    finish(ctx, command, json_path=json_path, plot_path=plot_path, figure=figure,
            inputs=[s.source for s in series], settings=settings, results=est,
            extra=None if target_f is None else
            {"verdicts": [v.to_record() for v in verdicts]},
