@@ -395,6 +395,11 @@ def measure_scaling(
         why = (f"the Green–Kubo cutoff grows with the run (as T^{growth:.2f})" if grows
                else f"the shorter parts do not follow 1/sqrt(T) (more than {k_sig:.2g} "
                     "standard errors away)")
+        if p_meas >= MAX_EXPONENT:
+            msg = (f"{why}, which slows the fall of the error below 1/sqrt(T), but the "
+                   f"parts measured {_law(p_meas)} +- {p_se:.2f}: projected with 1/sqrt(T), "
+                   "the fastest fall independent sampling gives")
+            return Scaling(used, "checked", p_meas, p_se, times, rs, growth, msg)
         msg = (f"error measured to scale as {_law(p_meas)} +- {p_se:.2f} over "
                f"{len(pts)} lengths of the run, not as 1/sqrt(T): {why}; projected with "
                f"{_law(used)}")

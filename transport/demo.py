@@ -262,6 +262,7 @@ def run_demo(
         echo(f"  {m.label}: Green–Kubo {gk.value:.2f} ± {gk.stderr:.2f} mPa s, "
              f"{dev:+.2f} mPa s ({dev / sc.experiment_mpas:+.0%}) from experiment")
     results["diffusion"] = _diffusion_step(outdir, rng, echo)
+    _run_length_step(files, echo)
     echo("")
     echo("caution: a transport coefficient is only as good as the potential and the sampling;")
     echo("thermostat coupling and the treatment of electrostatics bias it. Check against")
@@ -371,3 +372,54 @@ def _diffusion_step(outdir: Path, rng: np.random.Generator,
     )
     write_json(doc, outdir / "diffusion.json")
     return list(res.estimates)
+
+
+#: Run-length step: the share of each replica a pilot of that model ran (model A's pilot
+#: ran a tenth of its production; model B is judged on its production runs).
+_PILOT_FRACTION = {"model_a": 0.1}
+
+
+def _run_length_step(files: dict[str, list[Path]], echo: Callable[[str], None],
+                     target: float = 0.05) -> list:
+    """Run-length verdicts for a 5% target: model A's pilot, model B's production runs.
+
+    Model A's pilot is the first tenth of each of its production replicas, so the demo
+    shows the verdict on the pilot (too short), its projection, and then the error the full
+    production actually gave. The demo logs carry a placeholder loop time, so no wall-clock
+    hours are projected. Returns the verdicts.
+    """
+    from dataclasses import replace
+
+    from .io import load_stress
+    from .report.verdicts import format_verdicts
+    from .run_length import viscosity_verdicts
+    from .viscosity import analyse_viscosity
+
+    sc = SCENARIO
+    echo("")
+    echo(f"run length: is each candidate's sampling enough for a {target:.0%} error bar?")
+    verdicts = []
+    for m in sc.models:
+        full = [load_stress(p, temperature=sc.temperature) for p in files[m.name]]
+        full = [replace(s, source=replace(s.source, wall_seconds_per_time=None)) for s in full]
+        frac = _PILOT_FRACTION.get(m.name, 1.0)
+        runs = full if frac == 1.0 else [
+            replace(s, pressure=np.ascontiguousarray(s.pressure[:, : int(s.n * frac)]))
+            for s in full]
+        g = analyse_viscosity(runs).green_kubo
+        v = viscosity_verdicts(runs, [g], target=target)[0]
+        verdicts.append(v)
+        what = "production runs" if frac == 1.0 else f"pilot runs ({frac:.0%} of production)"
+        echo("")
+        echo(f"{m.label}, {sc.replicas} {what} of {v.run_time / sc.replicas:.4g} "
+             f"{v.time_unit} each:")
+        echo(format_verdicts([v], details=False))
+        echo(f"  {v.scaling.message}")
+        if frac < 1.0 and not v.long_enough and v.additional_time:
+            gf = analyse_viscosity(full).green_kubo
+            t_full = v.run_time / frac / sc.replicas
+            pred = v.relative_stderr * (1.0 / frac) ** -v.scaling.exponent
+            echo(f"  check: the full {t_full:.4g} {v.time_unit} runs gave "
+                 f"{gf.stderr / abs(gf.value):.1%}; the pilot's projection for that length "
+                 f"was {pred:.1%}")
+    return verdicts
