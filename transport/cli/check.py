@@ -25,6 +25,9 @@ DEFAULT_TARGET = "5%"
                    "not say it.")
 @click.option("--temperature", type=float, default=None,
               help="Temperature (K, or reduced): the thermostat set point.")
+@click.option("--volume", type=float, default=None,
+              help="Stress files: box volume in the engine's length unit cubed, where the "
+                   "file has no volume or box-length column.")
 @click.option("--run", "run", default=None,
               help="Stress files: which thermo run of a log to use (1-based), or 'all'.")
 @click.option("--select", default="all", show_default=True,
@@ -39,7 +42,7 @@ DEFAULT_TARGET = "5%"
 @click.pass_context
 def check(ctx: click.Context, files: tuple[str, ...], target: str | None, strict: bool,
           units: str | None, timestep: float | None, temperature: float | None,
-          run: str | None, select: str, group_by: str, continuation: bool,
+          volume: float | None, run: str | None, select: str, group_by: str, continuation: bool,
           json_path: str | None) -> None:
     """Is the run long enough? Run-length verdicts only, for the inputs of either
     'transport viscosity' (stress files: thermo logs, tables, energy files) or
@@ -59,13 +62,13 @@ def check(ctx: click.Context, files: tuple[str, ...], target: str | None, strict
     if fmt == "table":  # a table of stress, or a text topology: does it hold the tensor?
         try:
             load_stress(files[0], units=units, timestep=timestep, temperature=temperature,
-                        run=run)
+                        volume=volume, run=run)
             is_stress = True
         except InputError as exc:
             stress_error = exc
     if is_stress:
         run_viscosity(ctx, files, units=units, timestep=timestep, temperature=temperature,
-                      run=run, target=target, strict=strict, json_path=json_path,
+                      volume=volume, run=run, target=target, strict=strict, json_path=json_path,
                       default_target=DEFAULT_TARGET, verdicts_only=True, command="check")
         return
     if len(files) < 2:
