@@ -157,6 +157,37 @@ def test_long_transient_is_a_caution():
     assert v.long_enough  # a caution, not a blocker
 
 
+def _msd_estimate(unwrap, box=4.0):
+    # MSD = 6 D t with D = 0.05 over t = 0..100: rms at the window end (t = 25) is
+    # sqrt(6 x 0.05 x 25) = 2.74; particle spacing (64 / 8)^(1/3) = 2
+    t = np.linspace(0.0, 100.0, 1001)
+    d = {"box_lengths": [box] * 3, "box_volume": box**3, "n_particles": 8,
+         "length_unit": "nm", "unwrap": [unwrap], "block_count": 8}
+    curves = {"time": t, "msd": 0.3 * t, "slope_time": t[1:], "local_slope": np.ones(1000)}
+    return _est(0.05, 0.0005, method="msd_gls", quantity="self_diffusion",
+                window=(1.0, 25.0), diagnostics=d, curves=curves, group="A")
+
+
+def test_diffusion_checks_on_a_known_msd():
+    v = run_verdict(_msd_estimate("displacement"), target=0.05, run_times=[100.0])
+    c = {c.name: c for c in v.checks}
+    assert c["diffusive_regime"].passed and c["diffusive_regime"].value == 1.0
+    assert c["window_use"].passed and c["window_use"].value == pytest.approx(0.01)
+    assert c["rms_displacement"].value == pytest.approx(math.sqrt(7.5), rel=1e-9)
+    assert c["rms_displacement"].threshold == pytest.approx(2.0, rel=1e-12)
+    assert c["displacement_vs_box"].passed  # unwrapped by the reader: beyond the box is fine
+    assert v.long_enough
+    # coordinates taken as they are (no unwrapping) and moving beyond half a box: caution
+    v = run_verdict(_msd_estimate("none"), target=0.05, run_times=[100.0])
+    assert {c.name: c for c in v.checks}["displacement_vs_box"].passed is False
+    # a larger box (spacing 4 > rms 2.74): not yet past the neighbours; the run must grow
+    # by (4 / 2.74)^2 (MSD ~ t and the window ends at a fixed share of the run)
+    v = run_verdict(_msd_estimate("displacement", box=8.0), target=0.05, run_times=[100.0])
+    c = {c.name: c for c in v.checks}["rms_displacement"]
+    assert c.passed is False and not v.long_enough
+    assert v.additional_time == pytest.approx(100.0 * (16.0 / 7.5 - 1.0), rel=1e-9)
+
+
 def test_too_short_error_becomes_a_verdict():
     err = RunTooShortError("Green–Kubo: 1 piece", extra_time=40.0, time_unit="ps")
     v = too_short_verdict(err, quantity="shear_viscosity", method="green_kubo", target=0.05,

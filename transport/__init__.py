@@ -10,6 +10,9 @@ Estimators
     green_kubo, einstein, analyse_viscosity            shear viscosity
     analyse_diffusion, msd_diffusion, vacf_diffusion   self-diffusion
     mean_with_error                                    honest mean of any series
+Run-length verdicts
+    viscosity_verdicts, diffusion_verdicts             is the run long enough for a target?
+    run_verdict, Verdict                               the pure judgement on given results
 Errors
     InputError, RunTooShortError
 
@@ -28,6 +31,8 @@ from ._lazy import lazy_names
 __version__ = "0.1.0"
 
 _WHERE: dict[str, str] = {
+    "Verdict": "convergence",
+    "run_verdict": "convergence",
     "DiffusionAnalysis": "diffusion",
     "analyse_diffusion": "diffusion",
     "msd_diffusion": "diffusion",
@@ -46,6 +51,8 @@ _WHERE: dict[str, str] = {
     "UNIT_SYSTEMS": "units",
     "UnitSystem": "units",
     "get_unit_system": "units",
+    "diffusion_verdicts": "run_length",
+    "viscosity_verdicts": "run_length",
     "ViscosityAnalysis": "viscosity",
     "analyse_viscosity": "viscosity",
     "einstein": "viscosity",
@@ -62,10 +69,12 @@ __all__ = [
     "Source",
     "StressSeries",
     "UnitSystem",
+    "Verdict",
     "ViscosityAnalysis",
     "__version__",
     "analyse_diffusion",
     "analyse_viscosity",
+    "diffusion_verdicts",
     "einstein",
     "get_unit_system",
     "green_kubo",
@@ -75,7 +84,9 @@ __all__ = [
     "mean_with_error",
     "msd_diffusion",
     "read_table",
+    "run_verdict",
     "vacf_diffusion",
+    "viscosity_verdicts",
 ]
 
 
@@ -83,11 +94,13 @@ __getattr__, __dir__ = lazy_names(__name__, globals(), _WHERE, __all__)
 
 
 if TYPE_CHECKING:  # pragma: no cover - for type checkers and editors
+    from .convergence import Verdict, run_verdict
     from .diffusion import DiffusionAnalysis, analyse_diffusion, msd_diffusion, vacf_diffusion
     from .errors import InputError, RunTooShortError
     from .estimate import Estimate
     from .io import load_stress, load_stress_many, read_table
     from .io.trajectory import load_trajectory
+    from .run_length import diffusion_verdicts, viscosity_verdicts
     from .series import PositionSeries, Source, StressSeries
     from .stats import mean_with_error
     from .units import UNIT_SYSTEMS, UnitSystem, get_unit_system
