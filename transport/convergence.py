@@ -417,7 +417,14 @@ def _law(p: float) -> str:
 
 
 def _f(x: float) -> str:
-    return f"{x:.3g}"
+    """Three significant digits, without an exponent between 1e-3 and 1e6."""
+    if not math.isfinite(x) or x == 0:
+        return f"{x:g}"
+    mag = abs(x)
+    if not 1e-3 <= mag < 1e6:
+        return f"{x:.3g}"
+    d = 2 - int(math.floor(math.log10(mag)))
+    return f"{round(x, d):.{max(d, 0)}f}"
 
 
 def _precision_check(r: float, target: float) -> Check:
@@ -711,10 +718,12 @@ def run_verdict(
             "cannot be projected (check the run, or add independent replicas)"
             if math.isfinite(r) else ""))
     else:
+        h = "" if hours is None else f", about {_f(hours)} h at the logged speed"
+        hr = "" if hours_r is None else f" (about {_f(hours_r)} h)"
         reasons.append(
-            f"{precision.message}; about {_f(add_t)} {u} more per run ({_f(total + add_t * reps)}"
-            f" {u} in all), or {add_r} more replica(s) of {_f(mean_len)} {u}"
-            + (f" (about {hours:.3g} h at the logged speed)" if hours is not None else ""))
+            f"{precision.message}; about {_f(add_t)} {u} more per run "
+            f"({_f(total + add_t * reps)} {u} in all{h}), or {add_r} more replica(s) of "
+            f"{_f(mean_len)} {u}{hr}")
     reasons.append(scaling.message)
     reasons += [c.message for c in checks if not c.blocking and c.passed is False]
     return Verdict(
