@@ -2,7 +2,7 @@
 
 Pure functions: an estimate (and the estimates of shorter parts of the same data) in, a frozen
 :class:`Verdict` out. Nothing here opens a file, runs an estimator or prints; the analysis
-layer (:mod:`transport.run_length`) re-analyses the prefixes and passes their results in.
+layer (:mod:`transport.run_length`) re-analyses the shorter parts and passes their results in.
 
 What a verdict rests on
 -----------------------
@@ -25,20 +25,24 @@ the thresholds are stated (with their reason) beside each constant below.
 *Projection.* The relative standard error r is assumed to fall as a power of the total
 analysed time, ``r(T) = r(T0) (T / T0)^-p``, with ``p = 1/2`` for an estimator whose window
 does not change with the run (independent pieces: the central limit theorem). The exponent is
-measured on the data from the estimates of prefixes of the run (the same analysis on the first
-quarter and half of every replica): a weighted least-squares fit of ``log r`` on ``log T``,
-each point weighted by the variance of its ``log r`` (``1 / (2 (n - 1))`` for an error bar from
-the spread of n independent pieces [2]_, plus ``r^2`` for the estimate's own scatter; nested
-prefixes are treated as independent, which overstates the exponent's uncertainty and so flags
-a departure only when it is clear). The measured exponent replaces 1/2 when it differs from it
-by more than two standard errors, or when the Green–Kubo cutoff grows with the run (the time
-decomposition keeps about 20 pieces and lengthens them, so the cutoff, and with it the noise
-integrated, grows with T: on real Lennard-Jones output the error fell as T^-0.32). The time
-to reach a target ``r*`` is then ``T0 (r / r*)^(1/p)``. Additional replicas of the present
-length are projected with the same exponent in total simulated time (the estimators pool
-replicas and segments into independent pieces by total time). Projections are
-extrapolations: they hold while the run stays in the regime the prefixes sampled (for
-Green–Kubo, until the cutoff reaches the maximum lag, after which the error falls faster).
+measured on the data (:func:`measure_scaling`) from the same analysis of shorter parts of the
+run (the disjoint quarters and halves of every replica): a weighted least-squares fit of
+``log(stderr / |value|)`` on ``log T``, all over the whole data's value (a part's own value
+would add its scatter). The variance of one log standard error is the larger of the model's,
+``1 / (2 (n - 1))`` for an error bar from the spread of n independent pieces [2]_ (``r^2``
+for a model-based error bar, which scales with the value), and the scatter of the parts of
+one length (pooled). The measured exponent replaces 1/2 when it departs from it by more than
+the Student t 97.5% quantile times its standard error, or when the Green–Kubo cutoff grows
+with the run [3]_ (the time decomposition keeps about 20 pieces and lengthens them, so the
+cutoff, and with it the noise integrated, grows with T: on real Lennard-Jones output the
+error fell as T^-0.32 to T^-0.46). It is used within [0.1, 0.5]: the projection never
+promises a faster fall than independent sampling gives. The time to reach a target ``r*``
+is then ``T0 (r / r*)^(1/p)``. Additional replicas of the present length are projected with
+the same exponent in total simulated time (the estimators pool replicas and segments into
+independent pieces by total time; with a Green–Kubo cutoff already at its maximum this is
+conservative). Projections are extrapolations: they hold while the run stays in the regime
+the parts sampled (for Green–Kubo, until the cutoff reaches the maximum lag, after which the
+error falls faster).
 
 References
 ----------
@@ -149,10 +153,10 @@ class Scaling:
     exponent : float
         The exponent p used, ``r ~ T^-p``.
     rule : str
-        ``assumed`` (1/2, not checked: no usable prefixes), ``checked`` (1/2, the prefixes
-        agree with it) or ``measured`` (the prefixes' exponent is used).
+        ``assumed`` (1/2, not checked: no usable parts), ``checked`` (1/2, the parts
+        agree with it) or ``measured`` (the parts' exponent is used).
     measured, measured_stderr : float or None
-        The exponent fitted on the prefixes and its standard error.
+        The exponent fitted on the parts and its standard error.
     times, relative_stderrs : tuple of float
         The points fitted (total analysed time, relative standard error).
     window_growth : float or None

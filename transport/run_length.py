@@ -24,16 +24,16 @@ from .errors import InputError
 from .estimate import Estimate
 from .series import PositionSeries, StressSeries
 
-__all__ = ["PREFIX_FRACTIONS", "diffusion_verdicts", "engine_speed", "viscosity_verdicts"]
+__all__ = ["PART_FRACTIONS", "diffusion_verdicts", "engine_speed", "viscosity_verdicts"]
 
 #: Fractions of the analysed time re-analysed to check how the error falls with run length
 #: (a factor 4 in length: enough lever arm for an exponent, each part still holding the
 #: estimator's usual number of pieces in most runs).
-PREFIX_FRACTIONS: tuple[float, ...] = (0.25, 0.5)
+PART_FRACTIONS: tuple[float, ...] = (0.25, 0.5)
 
 
 def _count(fraction: float) -> int:
-    """Disjoint parts of length `fraction` that fit in the run (1 for a prefix)."""
+    """Disjoint parts of length `fraction` that fit in the run."""
     return max(1, int(math.floor(1.0 / fraction + 1e-9)))
 
 
@@ -41,16 +41,16 @@ def _same(a: Estimate, b: Estimate) -> bool:
     return a.quantity == b.quantity and a.method == b.method and a.group == b.group
 
 
-def _prefix_estimates(full: Sequence[Estimate],
-                      prefix_results: Sequence[tuple[float, Sequence[Estimate]]]
-                      ) -> list[list[tuple[float, Estimate]]]:
+def _part_estimates(full: Sequence[Estimate],
+                    part_results: Sequence[tuple[float, Sequence[Estimate]]]
+                    ) -> list[list[tuple[float, Estimate]]]:
     out: list[list[tuple[float, Estimate]]] = []
     for e in full:
-        out.append([(f, p) for f, ests in prefix_results for p in ests if _same(e, p)])
+        out.append([(f, p) for f, ests in part_results for p in ests if _same(e, p)])
     return out
 
 
-def _stress_prefix(s: StressSeries, start: int, n: int) -> StressSeries:
+def _stress_part(s: StressSeries, start: int, n: int) -> StressSeries:
     import numpy as np
 
     vol = s.volume if np.ndim(s.volume) == 0 else s.volume[start:start + n]
@@ -67,7 +67,7 @@ def viscosity_verdicts(
     fit_window: tuple[float, float] | str = "auto",
     max_lag: float | None = None,
     components: str = "all",
-    fractions: Sequence[float] = PREFIX_FRACTIONS,
+    fractions: Sequence[float] = PART_FRACTIONS,
 ) -> tuple[Verdict, ...]:
     """Verdicts for viscosity estimates, with the scaling checked on shorter parts of the runs.
 
@@ -108,7 +108,7 @@ def viscosity_verdicts(
     results: list[tuple[float, Sequence[Estimate]]] = []
     for f in fractions:
         for j in range(_count(f)):
-            part = [_stress_prefix(s, st + j * int(n * f), max(int(n * f), 1))
+            part = [_stress_part(s, st + j * int(n * f), max(int(n * f), 1))
                     for s, st, n in zip(slist, starts, lengths, strict=True)]
             try:
                 res = analyse_viscosity(
@@ -122,7 +122,7 @@ def viscosity_verdicts(
     return tuple(
         run_verdict(e, target=target, run_times=run_times, parts=pre,
                     seconds_per_time=speed)
-        for e, pre in zip(estimates, _prefix_estimates(estimates, results), strict=True))
+        for e, pre in zip(estimates, _part_estimates(estimates, results), strict=True))
 
 
 def engine_speed(series: Sequence[StressSeries] | Sequence[PositionSeries]) -> float | None:
@@ -163,7 +163,7 @@ def diffusion_verdicts(
     target: float,
     fit_window: tuple[float, float] | str = "auto",
     remove_drift: bool = True,
-    fractions: Sequence[float] = PREFIX_FRACTIONS,
+    fractions: Sequence[float] = PART_FRACTIONS,
 ) -> tuple[Verdict, ...]:
     """Verdicts for self-diffusion estimates, with the scaling checked on shorter parts.
 
@@ -207,7 +207,7 @@ def diffusion_verdicts(
             results.append((f, res.estimates))
     n_all = sum(s.positions.shape[1] for s in slist) / len(slist)
     out = []
-    for e, pre in zip(estimates, _prefix_estimates(estimates, results), strict=True):
+    for e, pre in zip(estimates, _part_estimates(estimates, results), strict=True):
         vol = e.diagnostics.get("box_volume")
         spacing = (vol / n_all) ** (1.0 / 3.0) if isinstance(vol, (int, float)) and \
             vol > 0 and n_all > 0 else None
