@@ -368,9 +368,9 @@ def measure_scaling(
     dof = sum(v.size - 1 for v in logs.values())
     if dof:
         var1 = max(var1, sum(dev) / dof)
-    pts = [(f * total_time, float(logs[f].mean()), var1 / logs[f].size, es[0])
+    pts = [(f * total_time, float(logs[f].mean()), var1 / logs[f].size, es)
            for f, es in sorted(groups.items())]
-    pts.append((total_time, math.log(estimate.stderr / value), var1, estimate))
+    pts.append((total_time, math.log(estimate.stderr / value), var1, [estimate]))
     x = np.log([p[0] for p in pts])
     y = np.array([p[1] for p in pts])
     w = 1.0 / np.array([p[2] for p in pts])
@@ -379,14 +379,15 @@ def measure_scaling(
     slope = float(np.sum(w * (x - xm) * (y - np.sum(w * y) / np.sum(w))) / sxx)
     p_meas, p_se = -slope, 1.0 / math.sqrt(sxx)
     # two-sided 95% departure from 1/2, Student t on the dof of the measured noise
-    from scipy import stats
+    from scipy import special
 
-    k_sig = float(stats.t.ppf(0.975, dof)) if dof else SCALING_SIGMAS
+    k_sig = float(special.stdtrit(dof, 0.975)) if dof else SCALING_SIGMAS
     growth = None
     d = estimate.diagnostics
     if estimate.method == "green_kubo" and d.get("cutoff_rule") not in (None, "given"):
-        ends = [(t, float(np.mean([e.window[1] for e in groups.get(t / total_time, [e0])])))
-                for t, _, _, e0 in pts if e0.window is not None and e0.window[1] > 0]
+        ends = [(t, float(np.mean([e.window[1] for e in es])))
+                for t, _, _, es in pts if all(e.window is not None and e.window[1] > 0
+                                              for e in es)]
         if len(ends) >= 2:
             growth = float(np.polyfit(np.log([t for t, _ in ends]),
                                       np.log([c for _, c in ends]), 1)[0])
@@ -400,9 +401,11 @@ def measure_scaling(
                else f"the shorter parts do not follow 1/sqrt(T) (more than {k_sig:.2g} "
                     "standard errors away)")
         if p_meas >= MAX_EXPONENT:
-            msg = (f"{why}, which slows the fall of the error below 1/sqrt(T), but the "
-                   f"parts measured {_law(p_meas)} +- {p_se:.2f}: projected with 1/sqrt(T), "
-                   "the fastest fall independent sampling gives")
+            msg = (f"the shorter parts measured {_law(p_meas)} +- {p_se:.2f}"
+                   + (f" (the Green–Kubo cutoff grows with the run, as T^{growth:.2f}, "
+                      "which can only slow the fall)" if grows else "")
+                   + ": projected with 1/sqrt(T), the fastest fall independent sampling "
+                     "gives")
             return Scaling(used, "checked", p_meas, p_se, times, rs, growth, msg)
         msg = (f"error measured to scale as {_law(p_meas)} +- {p_se:.2f} over "
                f"{len(pts)} lengths of the run, not as 1/sqrt(T): {why}; projected with "
