@@ -390,6 +390,8 @@ def _run_length_step(files: dict[str, list[Path]], echo: Callable[[str], None],
     """
     from dataclasses import replace
 
+    from .convergence import too_short_verdict
+    from .errors import RunTooShortError
     from .io import load_stress
     from .report.verdicts import format_verdicts
     from .run_length import viscosity_verdicts
@@ -406,16 +408,20 @@ def _run_length_step(files: dict[str, list[Path]], echo: Callable[[str], None],
         runs = full if frac == 1.0 else [
             replace(s, pressure=np.ascontiguousarray(s.pressure[:, : int(s.n * frac)]))
             for s in full]
-        g = analyse_viscosity(runs).green_kubo
-        v = viscosity_verdicts(runs, [g], target=target)[0]
+        try:
+            g = analyse_viscosity(runs).green_kubo
+            v = viscosity_verdicts(runs, [g], target=target)[0]
+        except RunTooShortError as exc:  # too short for any error bar: still a verdict
+            v = too_short_verdict(exc, quantity="shear_viscosity", method="green_kubo",
+                                  target=target, replicas=len(runs))
         verdicts.append(v)
         what = "production runs" if frac == 1.0 else f"pilot runs ({frac:.0%} of production)"
         echo("")
-        echo(f"{m.label}, {sc.replicas} {what} of {v.run_time / sc.replicas:.4g} "
-             f"{v.time_unit} each:")
+        each = sum(s.duration for s in runs) / len(runs) * runs[0].units.time_scale
+        echo(f"{m.label}, {sc.replicas} {what} of {each:.4g} {runs[0].units.time_unit} each:")
         echo(format_verdicts([v], details=False))
         echo(f"  {v.scaling.message}")
-        if frac < 1.0 and not v.long_enough and v.additional_time:
+        if frac < 1.0 and not v.long_enough and np.isfinite(v.relative_stderr):
             gf = analyse_viscosity(full).green_kubo
             t_full = v.run_time / frac / sc.replicas
             pred = v.relative_stderr * (1.0 / frac) ** -v.scaling.exponent
