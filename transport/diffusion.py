@@ -127,10 +127,13 @@ __all__ = [
     "vacf_diffusion",
 ]
 
-#: Most time blocks for the block check of the diffusion error bar, and the fewest for
-#: which it is made (dof = blocks - 1).
-BLOCKS_MAX = 16
+#: Numbers of independent time blocks tried for the MSD estimate (most first), and the
+#: fewest with which it is made (dof = blocks - 1).
+BLOCK_COUNTS = (8, 6, 4)
 BLOCKS_MIN = 4
+#: Inside a time block the fit window is cut at half the block if need be, but not below
+#: this factor in lag.
+BLOCK_WINDOW_MIN = 2.0
 #: Chunk of float64 values converted at a time (bounded memory for big trajectories).
 _CHUNK_VALUES = 1 << 23
 #: Bytes of the zero-padded float64 buffer of one block of particles in :func:`species_msd`
@@ -548,46 +551,77 @@ def _msd_estimate(slist: list[PositionSeries], name: str,
         )
         raise err
     fit = fit_msd(mean, dt, (k0, k1), frames=frames, counts=counts)
-    block = _block_check(members, name, (k0, k1), dt, remove_drift, workers)
+    block = _time_blocks(members, name, (k0, k1), dt, remove_drift, workers)
     return _msd_result(fit, mean, time, dt, name, diag, curves, rule, u, warn, lf, block)
 
 
 @dataclass(frozen=True)
-class _BlockCheck:
-    """Scatter of independent time blocks against their model error bars."""
+class _TimeBlocks:
+    """The fit of the MSD of independent time blocks, and the scatter of the blocks."""
 
+    fit: MSDFit  # fit of the particle-weighted mean of the block MSDs
     values: np.ndarray  # D of each block (internal units)
     stderrs: np.ndarray  # model (random-walk) standard error of each block
+    weights: np.ndarray  # particles of each block (normalised to sum 1)
     block_frames: int
-    factor: float  # sqrt(chi^2 / dof) of the block values about their weighted mean
 
     @property
     def dof(self) -> int:
         return int(self.values.size - 1)
 
+    @property
+    def scatter_stderr(self) -> float:
+        """Standard error of the weighted mean of the block values, from their scatter."""
+        w, v = self.weights, self.values
+        mu = float(w @ v)
+        n = v.size
+        return math.sqrt(float(np.sum(w**2 * (v - mu) ** 2)) * n / (n - 1))
 
-def _block_check(members: list[PositionSeries], name: str, window: tuple[int, int],
-                 dt: float, remove_drift: bool, workers: int | None) -> _BlockCheck | None:
-    """Fit the same window in independent time blocks; compare their scatter with the model.
+    @property
+    def chi2_factor(self) -> float:
+        """sqrt(chi^2/dof) of the block values about their weighted mean, model errors."""
+        e = self.stderrs
+        if not np.all(e > 0):
+            return float("nan")
+        w = 1.0 / e**2
+        mu = float(np.sum(w * self.values) / np.sum(w))
+        return math.sqrt(float(np.sum(w * (self.values - mu) ** 2)) / self.dof)
 
-    The random-walk covariance treats particles as independent; in a periodic liquid their
-    displacements are correlated by collective, momentum-conserving motion, which only
-    independent repeats show. Returns None when fewer than BLOCKS_MIN blocks fit.
+
+def _block_plan(nmin: int, replicas: int, window: tuple[int, int]) -> tuple[int, int] | None:
+    """Frames per time block and the last lag of the fit in each block, or None.
+
+    The most blocks (of BLOCK_COUNTS) that hold the window, cut at half a block (the
+    default longest lag of a run) if need be, but not below BLOCK_WINDOW_MIN times its
+    start and three fit points; None when fewer than BLOCKS_MIN blocks allow that.
     """
     k0, k1 = window
-    nmin = min(s.n_frames for s in members)
-    # as many blocks as keep the window (or, in short runs, a window cut to a quarter of the
-    # block, no shorter than twice its start) inside each block with ORIGINS_PER_LAG origins
-    # per lag; the ratio of scatter to model error is what the blocks measure
-    for nb in (BLOCKS_MAX, 8, BLOCKS_MIN):
-        per_rep = max(1, -(-nb // len(members)))
+    for nb in BLOCK_COUNTS:
+        per_rep = max(1, -(-nb // replicas))
         length = nmin // per_rep
-        kb = min(k1, int((length - 1) // (ORIGINS_PER_LAG + 1)))
-        if kb >= max(2 * k0, k0 + 4):
-            break
-    else:
+        kb = min(k1, int((length - 1) // 2))
+        if kb >= max(min(math.ceil(BLOCK_WINDOW_MIN * k0), k1), k0 + 2):
+            return length, kb
+    return None
+
+
+def _time_blocks(members: list[PositionSeries], name: str, window: tuple[int, int],
+                 dt: float, remove_drift: bool, workers: int | None) -> _TimeBlocks | None:
+    """Fit the same window in independent time blocks and in their mean MSD.
+
+    Each block is a stretch of consecutive frames of one replica; its MSD uses only its own
+    frames, so blocks share no displacement and, once they are long compared with the
+    window, are independent repeats: their scatter holds every correlation the data have
+    (between MSD points, between particles moving collectively), which the random-walk
+    model of one MSD curve cannot see [8]_. Returns None when the run is too short for
+    BLOCKS_MIN blocks (see :func:`_block_plan`).
+    """
+    k0 = window[0]
+    plan = _block_plan(min(s.n_frames for s in members), len(members), window)
+    if plan is None:
         return None
-    vals, ses = [], []
+    length, kb = plan
+    curves, vals, ses, cnt = [], [], [], []
     for s in members:
         idx = np.unique(s.species_indices(name))
         for j in range(s.n_frames // length):
@@ -596,27 +630,29 @@ def _block_check(members: list[PositionSeries], name: str, window: tuple[int, in
             m = _fft_msd(s.positions[sl], max_lag=kb, particles=idx, shift=shift,
                          workers=workers)
             f = fit_msd(m, dt, (k0, kb), frames=[length], counts=[float(idx.size)])
+            curves.append(m)
             vals.append(f.diffusion)
             ses.append(f.stderr / f.scale_factor)  # the model error, unscaled
+            cnt.append(float(idx.size))
     if len(vals) < BLOCKS_MIN:
         return None
-    v, e = np.array(vals), np.array(ses)
-    if not np.all(e > 0):
-        return None
-    w = 1.0 / e**2
-    mu = float(np.sum(w * v) / np.sum(w))
-    chi2 = float(np.sum(w * (v - mu) ** 2))
-    return _BlockCheck(v, e, length, math.sqrt(chi2 / (v.size - 1)))
+    w = np.array(cnt) / float(np.sum(cnt))
+    mean = w @ np.array(curves)
+    fit = fit_msd(mean, dt, (k0, kb), frames=[length] * len(cnt), counts=cnt)
+    return _TimeBlocks(fit, np.array(vals), np.array(ses), w, length)
 
 
-def _msd_result(fit: MSDFit, mean: np.ndarray, time: np.ndarray, dt: float, name: str,
+def _msd_result(whole: MSDFit, mean: np.ndarray, time: np.ndarray, dt: float, name: str,
                 diag: dict, curves: dict, rule: str, u: UnitSystem, warn: list[str], lf: float,
-                block: _BlockCheck | None = None) -> Estimate:
+                block: _TimeBlocks | None = None) -> Estimate:
+    """The Estimate: from the time blocks when the run holds them, else the whole run."""
     ds, ts = u.diffusion_scale, u.time_scale
+    fit = block.fit if block is not None else whole
     k0, k1 = int(fit.lags[0]), int(fit.lags[-1])
     frames, counts = diag["frames"], [float(c) for c in diag["particles_per_replica"]]
-    value, se = fit.diffusion, fit.stderr
-    # model standard deviation of every MSD point and band of the fitted line
+    value = fit.diffusion
+    model_se = fit.stderr / fit.scale_factor
+    # model standard deviation of every MSD point of the whole run, and band of the line
     lags_all = np.arange(1, mean.size)
     s2 = 2.0 * abs(value) * dt
     shape_diag = sum(p * msd_variance(lags_all, n) for n, p in zip(frames, counts,
@@ -624,50 +660,94 @@ def _msd_result(fit: MSDFit, mean: np.ndarray, time: np.ndarray, dt: float, name
     shape_diag = shape_diag / sum(counts) ** 2
     fit_line = 2 * _DIM * value * time + fit.intercept
     xb = np.column_stack([time, np.ones_like(time)])
-    fit_sd = np.sqrt(np.einsum("ij,jk,ik->i", xb, fit.cov_params, xb))
+    cov_params = fit.cov_params / fit.scale_factor**2
+    warn = list(warn)
+    p = fit.chi2_pvalue
+    if block is not None:
+        scatter = block.scatter_stderr
+        use_scatter = scatter > fit.stderr
+        se = scatter if use_scatter else fit.stderr
+        if np.isfinite(p) and p < 1e-3:
+            warn.append(
+                f"{name}: the MSD scatters much more than the random-walk covariance allows "
+                f"(chi^2 = {fit.chi2:.3g} for {fit.dof} degrees of freedom, p = {p:.2g}); the "
+                "error bar comes from independent time blocks")
+        if se > 1.5 * model_se:
+            warn.append(
+                f"{name}: {block.values.size} independent time blocks scatter "
+                f"{se / model_se:.2g}x more than the random-walk model error allows (the model "
+                "treats particles as independent); the error bar is from the blocks")
+        (lo, hi), interval_rule = msd_interval(value, se)
+        if use_scatter:
+            q = float(special.stdtrit(block.dof, 0.975))
+            lo, hi = value - q * se, value + q * se
+            interval_rule = f"Student t with {block.dof} dof (time blocks): value +- {q:.4g} stderr"
+        stderr_method = (
+            f"scatter of {block.values.size} independent time blocks of "
+            f"{block.block_frames * dt * ts:.4g} {u.time_unit}, each fitted over the same "
+            "window, about their particle-weighted mean (standard error of the mean)"
+            if use_scatter else
+            "model error of the fit to the mean MSD of the time blocks (their scatter was "
+            "smaller)" + (f", times the Birge ratio {fit.scale_factor:.3g}"
+                          if fit.scale_factor > 1 else ""))
+    else:
+        se = fit.stderr
+        warn.append(
+            f"{name}: the run is too short for {BLOCKS_MIN} independent time blocks that hold "
+            "the fit window, so the error bar could not be checked against the data; it is "
+            "the random-walk model error, which on real liquids (particles moving together) "
+            "has been 1.5-4x too small: run longer or add replicas")
+        if np.isfinite(p) and p < 1e-3:
+            warn.append(
+                f"{name}: the MSD scatters much more than the random-walk covariance allows "
+                f"(chi^2 = {fit.chi2:.3g} for {fit.dof} degrees of freedom, p = {p:.2g}); the "
+                f"error bar was scaled by sqrt(chi^2/dof) = {fit.scale_factor:.3g}, but the "
+                "model may not hold (correlated particles or a non-diffusive window)")
+        elif fit.scale_factor > 1:
+            warn.append(
+                f"{name}: error bar scaled by sqrt(chi^2/dof) = {fit.scale_factor:.3g}: the MSD "
+                f"scatters more than the random-walk covariance allows (chi^2 = {fit.chi2:.3g} "
+                f"for {fit.dof} degrees of freedom, p = {p:.2g})")
+        (lo, hi), interval_rule = msd_interval(value, se)
+        stderr_method = (
+            "weighted least squares on the whole run, sandwich error with the model "
+            "covariance at the fitted D" + (
+                f", scaled by the Birge ratio sqrt(chi^2/dof) = {fit.scale_factor:.3g} "
+                f"(chi^2 p-value below {CHI2_SCALE_P:g})" if fit.scale_factor > 1 else ""))
+    if block is not None and rule == "given" and int(whole.lags[-1]) > k1:
+        warn.append(
+            f"{name}: the fit window was cut to {k0 * dt * ts:.4g}-{k1 * dt * ts:.4g} "
+            f"{u.time_unit}, half of each of the {block.values.size} independent time blocks "
+            f"that carry the error bar; the whole run over the window asked for gives "
+            f"{whole.diffusion * ds:.4g} (diagnostics: whole_run_value)")
+    if value <= 0:
+        warn.append(f"{name}: the fitted slope is not positive")
+    if interval_rule.startswith("symmetric"):
+        warn.append(f"{name}: the error bar is too large for the scale-aware interval; the "
+                    "symmetric normal interval is given")
+    factor = se / model_se if model_se > 0 else float("nan")
+    fit_sd = np.sqrt(np.einsum("ij,jk,ik->i", xb, cov_params, xb)) * factor
     curves = dict(curves)
     curves.update(fit=fit_line * lf**2, fit_sd=fit_sd * lf**2,
                   msd_sd=np.concatenate([[0.0], np.sqrt(_DIM * s2 * s2 * shape_diag)])
                   * lf**2)
-    p = fit.chi2_pvalue
-    warn = list(warn)
-    if np.isfinite(p) and p < 1e-3:
-        warn.append(
-            f"{name}: the MSD scatters much more than the random-walk covariance allows "
-            f"(chi^2 = {fit.chi2:.3g} for {fit.dof} degrees of freedom, p = {p:.2g}); the "
-            f"error bar was scaled by sqrt(chi^2/dof) = {fit.scale_factor:.3g}, but the "
-            "model may not hold (correlated particles or a non-diffusive window)")
-    elif fit.scale_factor > 1:
-        warn.append(
-            f"{name}: error bar scaled by sqrt(chi^2/dof) = {fit.scale_factor:.3g}: the MSD "
-            f"scatters more than the random-walk covariance allows (chi^2 = {fit.chi2:.3g} "
-            f"for {fit.dof} degrees of freedom, p = {p:.2g})")
-    if value <= 0:
-        warn.append(f"{name}: the fitted slope is not positive")
-    model_se = se / fit.scale_factor
-    block_factor = block.factor if block is not None else float("nan")
-    use_block = block is not None and block.factor > max(fit.scale_factor, 1.0)
-    if use_block:
-        se = model_se * block.factor
-        warn.append(
-            f"{name}: {block.values.size} independent time blocks scatter "
-            f"{block.factor:.2g}x more than the random-walk model error allows; the error bar "
-            "was widened by that factor (the model treats particles as independent)")
-    (lo, hi), interval_rule = msd_interval(value, se)
-    if use_block:
-        q = float(special.stdtrit(block.dof, 0.975))
-        lo, hi = min(lo, value - q * se), max(hi, value + q * se)
-        interval_rule += f"; at least Student t with {block.dof} dof (time blocks)"
-    if interval_rule.startswith("symmetric"):
-        warn.append(f"{name}: the error bar is too large for the scale-aware interval; the "
-                    "symmetric normal interval is given")
     lu = diag["length_unit"]
     d = dict(diag)
     d.update(
         fit_window=(k0 * dt * ts, k1 * dt * ts),
         window_rule=rule,
         fit_points=int(fit.lags.size),
+        weight_span=(fit.weight_span[0] * dt * ts, fit.weight_span[1] * dt * ts),
         alpha_outside_fraction=_alpha_outside(mean, (k0, k1), frames, counts),
+        fit_method="least squares weighted by the inverse model variance of each MSD "
+                   "point, evenly spaced lags" + (
+                       ", on the mean MSD of independent time blocks" if block else
+                       ", on the MSD of the whole run"),
+        covariance_model="analytic random-walk covariance of the MSD points (Bullerjahn, "
+                         "von Bülow & Hummer 2020), independent particles: weights and "
+                         "model error",
+        gls_value=fit.gls_diffusion * ds,
+        gls_stderr_model=fit.gls_stderr * ds,
         ols_value=fit.ols_diffusion * ds,
         ols_stderr=fit.ols_stderr * ds,
         ols_stderr_naive=fit.ols_stderr_naive * ds,
@@ -677,29 +757,24 @@ def _msd_result(fit: MSDFit, mean: np.ndarray, time: np.ndarray, dt: float, name
         chi2=fit.chi2,
         dof=fit.dof,
         chi2_pvalue=p,
-        covariance_model="analytic random-walk covariance of the MSD points (Bullerjahn, "
-                         "von Bülow & Hummer 2020), independent particles",
-        stderr_scale_factor=(block.factor if use_block else fit.scale_factor),
+        whole_run_value=whole.diffusion * ds,
+        whole_run_stderr_model=whole.stderr / whole.scale_factor * ds,
+        whole_run_window=(int(whole.lags[0]) * dt * ts, int(whole.lags[-1]) * dt * ts),
         stderr_model=model_se * ds,
+        stderr_scale_factor=factor,
         fit_scale_factor=fit.scale_factor,
-        block_scale_factor=block_factor,
+        block_scale_factor=float("nan") if block is None else block.chi2_factor,
         block_count=0 if block is None else int(block.values.size),
         block_length=float("nan") if block is None else block.block_frames * dt * ts,
         block_values=[] if block is None else [float(x) * ds for x in block.values],
         block_stderrs=[] if block is None else [float(x) * ds for x in block.stderrs],
-        stderr_method=(
-            f"model error times the scatter of {block.values.size} independent time blocks "
-            f"about their weighted mean, sqrt(chi^2/dof) = {block.factor:.3g}" if use_block
-            else "generalized least squares with the model covariance at the fitted D" + (
-                f", scaled by the Birge ratio sqrt(chi^2/dof) = {fit.scale_factor:.3g} "
-                f"(chi^2 p-value below {CHI2_SCALE_P:g})" if fit.scale_factor > 1 else "")),
+        stderr_method=stderr_method,
         interval_method=interval_rule,
     )
     return Estimate(
-        "self_diffusion", "msd_gls", value * ds, se * ds,
+        "self_diffusion", "msd_wls", value * ds, se * ds,
         (lo * ds, hi * ds), u.diffusion_unit,
         window=(k0 * dt * ts, k1 * dt * ts), window_unit=u.time_unit, group=name,
         n_independent=float(d["n_particles"]), diagnostics=d, curves=curves,
         warnings=tuple(dict.fromkeys(warn)),
     )
-
