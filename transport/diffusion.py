@@ -664,9 +664,7 @@ def _msd_result(whole: MSDFit, mean: np.ndarray, time: np.ndarray, dt: float, na
     warn = list(warn)
     p = fit.chi2_pvalue
     if block is not None:
-        scatter = block.scatter_stderr
-        use_scatter = scatter > fit.stderr
-        se = scatter if use_scatter else fit.stderr
+        se = block.scatter_stderr
         if np.isfinite(p) and p < 1e-3:
             warn.append(
                 f"{name}: the MSD scatters much more than the random-walk covariance allows "
@@ -677,19 +675,13 @@ def _msd_result(whole: MSDFit, mean: np.ndarray, time: np.ndarray, dt: float, na
                 f"{name}: {block.values.size} independent time blocks scatter "
                 f"{se / model_se:.2g}x more than the random-walk model error allows (the model "
                 "treats particles as independent); the error bar is from the blocks")
-        (lo, hi), interval_rule = msd_interval(value, se)
-        if use_scatter:
-            q = float(special.stdtrit(block.dof, 0.975))
-            lo, hi = value - q * se, value + q * se
-            interval_rule = f"Student t with {block.dof} dof (time blocks): value +- {q:.4g} stderr"
+        q = float(special.stdtrit(block.dof, 0.975))
+        lo, hi = value - q * se, value + q * se
+        interval_rule = f"Student t with {block.dof} dof (time blocks): value +- {q:.4g} stderr"
         stderr_method = (
             f"scatter of {block.values.size} independent time blocks of "
             f"{block.block_frames * dt * ts:.4g} {u.time_unit}, each fitted over the same "
-            "window, about their particle-weighted mean (standard error of the mean)"
-            if use_scatter else
-            "model error of the fit to the mean MSD of the time blocks (their scatter was "
-            "smaller)" + (f", times the Birge ratio {fit.scale_factor:.3g}"
-                          if fit.scale_factor > 1 else ""))
+            "window, about their particle-weighted mean (standard error of the mean)")
     else:
         se = fit.stderr
         warn.append(
