@@ -24,17 +24,25 @@ from transport.series import PositionSeries
 def time_block(series: PositionSeries, start: int, stop: int) -> PositionSeries:
     """Frames ``start:stop`` of a series as a run of its own (public constructor)."""
     sl = slice(start, stop)
+    vel = None if series.velocities is None else np.asarray(series.velocities[sl])
     return positions_from_arrays(
         np.asarray(series.positions[sl]), series.box[sl], series.dt, unwrap="none",
         units=series.units, species=series.species, species_names=series.species_names,
-        masses=series.masses, temperature=series.temperature)
+        masses=series.masses, velocities=vel, temperature=series.temperature)
 
 
-def analyse_blocks(series: PositionSeries, k: int) -> list[Estimate]:
-    """The MSD estimate of each of ``k`` consecutive time blocks (first species)."""
+def analyse_blocks(series: PositionSeries, k: int, *, method: str = "msd"
+                   ) -> list[Estimate]:
+    """The estimate (``msd`` or ``vacf``) of each of ``k`` consecutive time blocks (first
+    species)."""
     n = series.n_frames // k
-    return [analyse_diffusion(time_block(series, j * n, (j + 1) * n), vacf="no").msd[0]
-            for j in range(k)]
+    out = []
+    for j in range(k):
+        res = analyse_diffusion(time_block(series, j * n, (j + 1) * n),
+                                vacf="yes" if method == "vacf" else "no",
+                                msd=method == "msd")
+        out.append((res.vacf if method == "vacf" else res.msd)[0])
+    return out
 
 
 def chi2_about_weighted_mean(values: np.ndarray, errors: np.ndarray) -> float:
