@@ -1,51 +1,54 @@
 """Self-diffusion from particle trajectories: Einstein (MSD) and Green–Kubo (VACF) estimators.
 
-MSD route (method ``msd_gls``). The mean-squared displacement of each species is averaged over
-particles and all time origins with FFTs (:func:`transport.stats.msd`), after the system's
-centre-of-mass drift is removed. The diffusive window is found from the local slope
+MSD route (method ``msd_wls``). The mean-squared displacement of each species is averaged
+over particles and all time origins with FFTs (:func:`transport.stats.msd`), after the
+system's centre-of-mass drift is removed. The diffusive window is found from the local slope
 ``alpha(t) = d log MSD / d log t``: it ends where fewer than three non-overlapping intervals of
 the lag fit in the run (lag <= (N+1)/4 for N steps; the long-lag tail, few origins) and starts
-at the first lag from which ``alpha`` stays within ``max(0.1, 3 sd)`` of 1 up to that end
-(``sd`` the statistical spread of ``alpha`` for a random walk with as many particles and
-frames), which excludes the ballistic start and the caging shoulder. ``MSD(t) = 6 D t + b`` is
-fitted there by generalized least squares with the covariance matrix of the MSD points [1]_,
-at lags spaced by half the window start (every lag for a random walk; for inertial motion
-this keeps the frame-level smoothness of the trajectories, which a random walk lacks, out of
-the fit).
+at the first lag from which ``alpha`` stays within ``max(0.1, 3 sd)`` of 1 over a factor 3 in
+lag (``sd`` the statistical spread of ``alpha`` for a random walk with as many particles and
+frames), which excludes the ballistic start and the caging shoulder, and where the slope of
+the MSD over one doubling of the lag agrees with the slope over the next within 2% (or 3
+model sd): ``alpha`` near 1 does not make an MSD ``6 D t + b`` linear when ``b`` is not
+small, and molecule centres still bend there.
 
-Covariance choice (documented per the design note): the analytic covariance of the
-time-averaged MSD of a Gaussian random walk without localisation noise [1]_, derived here in
-closed form (see :func:`msd_covariance`), with particles (and replicas) taken as independent.
-For a random walk the MSD points at lags n and m of one coordinate of one particle with
-``N + 1`` frames and step variance ``s^2`` have
+The estimate and its error bar come from independent time blocks [8]_: the run is cut into
+8 blocks (6 or 4 when the window does not fit), the window is cut at half a block if need
+be (never below twice its start), each block's MSD uses only its own frames, and
+``MSD(t) = 6 D t + b`` is fitted to the particle-weighted mean of the block MSDs by least
+squares weighted with the inverse model variance of each point, at evenly spaced lags. The
+standard error is the scatter of the block values (each block fitted the same way) about
+their weighted mean, over sqrt(blocks); the 95% interval is Student's t with blocks - 1 dof.
+Independent repeats see every correlation the data have (between MSD points, and between
+particles that move together in a periodic box or belong to one molecule), which a model of
+one MSD curve cannot. A run too short for four such blocks gets the model error below (times
+the Birge ratio when the fit's chi-square rejects the model [6]_ [7]_) and a warning.
+
+Covariance model (the weights, the model error and the model check): the analytic
+covariance of the time-averaged MSD of a Gaussian random walk without localisation noise
+[1]_, derived here in closed form (see :func:`msd_covariance`), with particles (and
+replicas) taken as independent. For a random walk the MSD points at lags n and m of one
+coordinate of one particle with ``N + 1`` frames and step variance ``s^2`` have
 
     Cov[M(n), M(m)] = 2 s^4 S(n, m) / ((N - n + 1)(N - m + 1)),
     S(n, m) = sum_{i,j} overlap(i, n; j, m)^2,
 
 the sum running over the origins of both lags and ``overlap`` the number of steps the two
 displacement windows share (Isserlis' theorem: Cov[A^2, B^2] = 2 Cov[A, B]^2 for zero-mean
-Gaussians). Its shape does not depend on D, so the GLS estimate needs no iteration; its
-scale ``s^2 = 2 D dt`` is evaluated at the fitted D. The fit's chi-square against this model
-is reported. When it rejects the model at the 5% level (the MSD scatters more than the
-random-walk covariance allows: particles that move together, non-Gaussian displacements, a
-window not yet quite linear), the standard error is multiplied by the Birge ratio
-``S = sqrt(chi^2 / dof)`` [6]_, the scale factor the Particle Data Group applies to
-inconsistent data [7]_; the factor is recorded. (Applied only on rejection: scaling every fit
-by ``max(1, S)`` would widen correct error bars by several per cent on average for short
-windows and over-cover; the test at 5% leaves correct fits alone 95% of the time.) A p-value
-far below 0.01 also attaches a warning. Estimating the covariance from particles instead
-would need many more particles than fit points and ignores the correlation between particles
-just the same.
+Gaussians). Its shape does not depend on D; its scale ``s^2 = 2 D dt`` is evaluated at the
+fitted D. Only its diagonal weights the fit: with the full covariance (generalized least
+squares, optimal if the model held [1]_) the fit becomes one of the MSD's increments and
+rests on the first two lags of the window, which on real liquids made the answer hang on
+where the window starts (see :func:`fit_msd`). The model error of the weighted fit is the
+sandwich with the full covariance (``stderr_model`` in the diagnostics); the GLS answer and
+the chi-square of its residuals against the model are reported as diagnostics.
 
-The 95% interval (:func:`msd_interval`) uses the normal quantile, not Student's t: no scale is
-estimated from the fit residuals (the covariance is a model whose scale is fixed by D), so the
-residual degrees of freedom say nothing about the error bar's own uncertainty. Because the
-standard error is proportional to D, the interval inverts ``|D_hat - D| <= z c D``
-(``c = stderr / D_hat``), ``[D_hat / (1 + z c), D_hat / (1 - z c)]``, instead of plugging
-``D_hat`` into the error bar: the symmetric ``D_hat +- z stderr`` is too short when ``D_hat``
-is low and under-covers once ``c`` reaches ~0.1 (measured on single random walks with
-``c = 0.19``: 0.929 symmetric, 0.945-0.950 inverted; with many particles, ``c`` of a few per
-cent, both give 0.95).
+The interval without time blocks (:func:`msd_interval`) uses the normal quantile, not
+Student's t: no scale is estimated from the fit residuals, so the residual degrees of freedom
+say nothing about the error bar's own uncertainty. Because the model error is proportional to
+D, it inverts ``|D_hat - D| <= z c D`` (``c = stderr / D_hat``),
+``[D_hat / (1 + z c), D_hat / (1 - z c)]``, instead of plugging ``D_hat`` into the error bar
+(measured on single random walks with ``c = 0.19``: 0.929 symmetric, 0.945-0.950 inverted).
 
 The MSD of a species (:func:`species_msd`) sums the power spectra of all its particles and
 coordinates before one inverse FFT (the transform is linear; only the particle average is
@@ -53,11 +56,12 @@ needed), working through blocks of particles in one reused zero-padded buffer.
 
 VACF route (method ``vacf``): ``D = (1/3) integral <v(0) . v(t)> dt`` (trapezoid rule) up to a
 cutoff twice the lag after which the normalised VACF stays below 0.01 for a further doubling of
-the lag; the error bar is the spread of the integral over independent time segments (each
-at least 10 cutoffs long), or over blocks of particles when the run holds fewer than four
-segments. Frames more than a small fraction of the velocity decorrelation time apart make the
-integral meaningless: when the VACF falls below 0.7 of its initial value within one frame the
-estimate is skipped (``vacf="auto"``) or carries a warning.
+the lag; the error bar is the spread of the integral over independent time segments (at
+least 10 cutoffs long, shortened to no less than two cutoffs to give 8 segments); blocks of
+particles, which share the collective motion of the box, are added only when the run holds
+fewer than four segments, with a warning. Frames more than a small fraction of the velocity
+decorrelation time apart make the integral meaningless: when the VACF falls below 0.7 of its
+initial value within one frame the estimate is skipped (``vacf="auto"``) or carries a warning.
 
 D is the value in the periodic box; the diagnostics record box lengths, temperature and group
 sizes for the Yeh–Hummer finite-size correction [3]_, which needs the shear viscosity.
@@ -81,6 +85,8 @@ References
    40, 207 (1932).
 .. [7] Particle Data Group, "Review of Particle Physics", Introduction, section on averaging
    measurements: the scale factor S (from memory).
+.. [8] H. Flyvbjerg and H. G. Petersen, "Error estimates on averages of correlated data",
+   J. Chem. Phys. 91, 461 (1989): means of independent blocks and their variance.
 """
 
 from __future__ import annotations
@@ -203,12 +209,12 @@ def species_msd(
 
 @dataclass(frozen=True)
 class DiffusionAnalysis:
-    """MSD (GLS) and VACF estimates per species from one analysis.
+    """MSD (weighted least squares, time blocks) and VACF estimates per species.
 
     Attributes
     ----------
     msd : tuple of Estimate
-        ``self_diffusion`` by ``msd_gls``, one per species.
+        ``self_diffusion`` by ``msd_wls``, one per species.
     vacf : tuple of Estimate
         ``self_diffusion`` by ``vacf``, one per species that had velocities sampled finely
         enough.
@@ -322,7 +328,7 @@ def msd_diffusion(
     max_lag: int | None = None,
     workers: int | None = None,
 ) -> tuple[Estimate, ...]:
-    """Self-diffusion per species from the MSD, fitted by generalized least squares.
+    """Self-diffusion per species from the MSD of independent time blocks (weighted fit).
 
     Parameters
     ----------
@@ -330,7 +336,8 @@ def msd_diffusion(
         One run, or independent replicas (same frame interval).
     fit_window : (float, float) or "auto"
         Fit range of lag times in internal units (s, or tau), or ``"auto"`` (local slope of
-        log MSD; see the module notes).
+        log MSD; see the module notes). The time blocks may cut its end at half a block
+        (with a warning when the range was given).
     remove_drift : bool
         Subtract the system's centre-of-mass drift before computing the MSD.
     max_lag : int, optional
@@ -341,10 +348,13 @@ def msd_diffusion(
     Returns
     -------
     tuple of Estimate
-        ``self_diffusion`` by ``msd_gls`` for each species, in 1e-9 m^2/s (or reduced).
-        ``window`` is the fit range in ps (or tau); ``n_independent`` the number of
-        particles. ``diagnostics`` hold the OLS answer with honest and naive errors, the
-        chi-square of the fit, the intercept, the box, temperature and group sizes.
+        ``self_diffusion`` by ``msd_wls`` for each species, in 1e-9 m^2/s (or reduced).
+        ``window`` is the fit range the estimate uses, in ps (or tau); ``n_independent``
+        the number of particles. ``diagnostics`` hold the time blocks (``block_count``,
+        ``block_length``, ``block_values``, ``block_stderrs``), the model error
+        (``stderr_model``) and the factor to the reported one, ``weight_span``, the
+        whole-run fit over the full window, the GLS and OLS answers, the chi-square of
+        the model check, the intercept, the box, temperature and group sizes.
         ``curves`` hold ``time``, ``msd``, ``msd_sd``, ``fit``, ``fit_sd``,
         ``slope_time`` and ``local_slope``.
 
@@ -356,6 +366,7 @@ def msd_diffusion(
     References
     ----------
     .. [1] Bullerjahn, von Bülow & Hummer, J. Chem. Phys. 153, 024116 (2020).
+    .. [2] Flyvbjerg & Petersen, J. Chem. Phys. 91, 461 (1989).
     """
     return analyse_diffusion(series, fit_window=fit_window, remove_drift=remove_drift,
                              vacf="no", max_lag=max_lag, workers=workers).msd
@@ -409,7 +420,7 @@ def analyse_diffusion(
     workers: int | None = None,
     msd: bool = True,
 ) -> DiffusionAnalysis:
-    """MSD (GLS) estimates per species and, where velocities allow, the VACF cross-check.
+    """MSD estimates per species and, where velocities allow, the VACF cross-check.
 
     Parameters
     ----------
