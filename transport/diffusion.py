@@ -108,6 +108,7 @@ from .msd_fit import (
     MSDFit,
     _alpha_outside,
     _local_slope,
+    _wls_slope,
     diffusive_window,
     fit_msd,
     msd_covariance,
@@ -632,6 +633,9 @@ def _time_blocks(members: list[PositionSeries], name: str, window: tuple[int, in
     if plan is None:
         return None
     length, kb = plan
+    # every block has the same lags and frames: one set of slope coefficients serves all
+    # (the same numbers fit_msd gives, without its GLS and OLS diagnostics)
+    lags, coef, var_shape = _wls_slope(k0, kb, length)
     curves, vals, ses, cnt = [], [], [], []
     for s in members:
         idx = np.unique(s.species_indices(name))
@@ -640,10 +644,12 @@ def _time_blocks(members: list[PositionSeries], name: str, window: tuple[int, in
             shift = s.drift[sl] if (remove_drift and s.drift is not None) else None
             m = _fft_msd(s.positions[sl], max_lag=kb, particles=idx, shift=shift,
                          workers=workers)
-            f = fit_msd(m, dt, (k0, kb), frames=[length], counts=[float(idx.size)])
+            dj = float(coef @ m[lags]) / (dt * 2 * _DIM)
             curves.append(m)
-            vals.append(f.diffusion)
-            ses.append(f.stderr / f.scale_factor)  # the model error, unscaled
+            vals.append(dj)
+            # model error: d s^4 var_shape / P with s^2 = 2 |D| dt, slope -> D: / (2 d dt)
+            ses.append(math.sqrt(_DIM * (2 * abs(dj) * dt) ** 2 * var_shape / idx.size)
+                       / (dt * 2 * _DIM))
             cnt.append(float(idx.size))
     if len(vals) < BLOCKS_MIN:
         return None

@@ -468,6 +468,22 @@ def fit_msd(
     )
 
 
+def _wls_slope(k0: int, k1: int, n_frames: int) -> tuple[np.ndarray, np.ndarray, float]:
+    """Lags, slope coefficients and model variance shape of the default fit of one run.
+
+    For an MSD of ``P`` independent particles over ``n_frames`` frames, the diagonal-
+    weighted slope is ``coef @ msd[lags]`` (weights do not depend on ``P``) and its model
+    variance is ``d s^4 var_shape / P`` with ``s^2 = 2 |D| dt``: what :func:`fit_msd`
+    computes, without the GLS and OLS diagnostics (for many blocks of equal length).
+    """
+    lags = _fit_lags(int(k0), int(k1))
+    shape = _combined_shape(lags, [n_frames], [1.0])
+    d = np.sqrt(np.diag(shape))
+    x = np.column_stack([lags.astype(np.float64), np.ones(lags.size)]) / d[:, None]
+    coef = np.linalg.solve(x.T @ x, x.T)[0] / d  # slope per lag (frames)
+    return lags, coef, float(coef @ shape @ coef)
+
+
 def msd_interval(value: float, stderr: float, *, level: float = 0.95
                  ) -> tuple[tuple[float, float], str]:
     """Confidence interval of a GLS estimate of D whose standard error is proportional to D.
