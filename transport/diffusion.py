@@ -590,6 +590,22 @@ class _TimeBlocks:
         return math.sqrt(float(np.sum(w**2 * (v - mu) ** 2)) * n / (n - 1))
 
     @property
+    def pairs_stderr(self) -> float:
+        """The same standard error from the means of consecutive pairs of blocks (the next
+        blocking level of Flyvbjerg & Petersen): larger than `scatter_stderr` beyond its
+        own noise when neighbouring blocks are correlated (blocks too short)."""
+        n = self.values.size // 2
+        if n < 2:
+            return float("nan")
+        w = self.weights[: 2 * n].reshape(n, 2)
+        v = self.values[: 2 * n].reshape(n, 2)
+        wp = w.sum(axis=1)
+        vp = (w * v).sum(axis=1) / wp
+        wp = wp / wp.sum()
+        mu = float(wp @ vp)
+        return math.sqrt(float(np.sum(wp**2 * (vp - mu) ** 2)) * n / (n - 1))
+
+    @property
     def chi2_factor(self) -> float:
         """sqrt(chi^2/dof) of the block values about their weighted mean, model errors."""
         e = self.stderrs
@@ -776,6 +792,7 @@ def _msd_result(whole: MSDFit, mean: np.ndarray, time: np.ndarray, dt: float, na
         block_count=0 if block is None else int(block.values.size),
         block_length=float("nan") if block is None else block.block_frames * dt * ts,
         block_values=[] if block is None else [float(x) * ds for x in block.values],
+        block_stderr_pairs=float("nan") if block is None else block.pairs_stderr * ds,
         block_stderrs=[] if block is None else [float(x) * ds for x in block.stderrs],
         stderr_method=stderr_method,
         interval_method=interval_rule,
