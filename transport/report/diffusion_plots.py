@@ -22,13 +22,13 @@ def diffusion_figure(msd: Sequence[Estimate], vacf: Sequence[Estimate] = ()):
 
     Panels: (1) the MSD on log-log axes with the local slope ``d log MSD / d log t`` on a
     second axis and the chosen fit window shaded; (2) the MSD
-    on linear axes with the GLS fit line and its 95% band over the window; (3) when VACF
+    on linear axes with the fit line and its 95% band over the window; (3) when VACF
     estimates are given, the normalised VACF and the running integral with the cutoff.
 
     Parameters
     ----------
     msd : sequence of Estimate
-        ``msd_gls`` estimates (one per species) with their curves.
+        ``msd_wls`` estimates (one per species) with their curves.
     vacf : sequence of Estimate
         ``vacf`` estimates, possibly empty.
 
@@ -81,7 +81,7 @@ def diffusion_figure(msd: Sequence[Estimate], vacf: Sequence[Estimate] = ()):
         a_log.legend(fontsize=7, loc="upper left")
         a_lin.set_xlabel(f"lag ({e0.window_unit})")
         a_lin.set_ylabel(f"MSD ({lu})")
-        a_lin.set_title("GLS fit (dashed) with 95% band; MSD ± model sd",
+        a_lin.set_title("weighted fit (dashed) with 95% band; MSD ± model sd",
                         fontsize=9)
         a_lin.legend(fontsize=7, loc="upper left")
         text = "\n".join(f"{e.group}: D = {e.value:.4g} ± {e.stderr:.2g} {e.unit}"
