@@ -342,7 +342,7 @@ def correct_diffusion(diffusion: Estimate, viscosity: Estimate | tuple[float, fl
     d = dict(diffusion.diagnostics)
     if isinstance(viscosity, Estimate):
         eta, eta_se, eta_unit = viscosity.value, viscosity.stderr, viscosity.unit
-        eta_from = f"{viscosity.method} ({viscosity.quantity})"
+        eta_from = viscosity.method
     else:
         eta, eta_se = (float(x) for x in viscosity)
         eta_unit = "reduced" if diffusion.unit == "reduced" else "mPa s"
@@ -535,6 +535,7 @@ def extrapolate_box_size(results: Sequence[Estimate], *,
     diag: dict[str, Any] = {
         "x": x.tolist(), "x_unit": f"1/{length_unit}", "d_pbc": y.tolist(),
         "d_pbc_stderr": s.tolist(), "slope": slope, "slope_stderr": slope_se,
+        "covariance": (cov * birge**2).tolist(),
         "chi2": chi2 if dof > 0 else None, "dof": dof, "stderr_scale_factor": birge,
         "temperature": temperature, "boxes": len(x),
         "box_lengths": [r.diagnostics.get("box_lengths") for r in results],
