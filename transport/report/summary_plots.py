@@ -59,6 +59,7 @@ def diffusion_summary_figure(report: Report):
         _errorbar(ax, keys.index(k) + off, e, col, mk, None if lab in seen else lab)
         seen.add(lab)
     ax.set_xticks(range(len(keys)), [f"{g}\n{s}" for g, s in keys], fontsize=7)
+    ax.set_xlim(-0.5, max(len(keys), 1) - 0.5)
     unit = rows[0].estimate.unit if rows else ""
     ax.set_ylabel(f"D ({unit})")
     ax.set_title("self-diffusion with 95% intervals (MSD fit)")
@@ -82,6 +83,7 @@ def viscosity_summary_figure(report: Report):
         _errorbar(ax, sources.index(r.source) + off, r.estimate, f"C{m}", "o",
                   lab if sources.index(r.source) == 0 or r.source == sources[0] else None)
     ax.set_xticks(range(len(sources)), sources, fontsize=7)
+    ax.set_xlim(-0.5, max(len(sources), 1) - 0.5)
     unit = rows[0].estimate.unit if rows else ""
     ax.set_ylabel(f"shear viscosity ({unit})")
     ax.set_title("shear viscosity by method with 95% intervals")
