@@ -19,6 +19,7 @@ from transport.corrections import (
     XI_CUBIC,
     cell_matrix,
     correct_diffusion,
+    correct_each,
     extrapolate_box_size,
     oseen_lattice_sum,
     periodic_oseen,
@@ -276,3 +277,15 @@ def test_extrapolation_refuses_and_warns():
     ext = extrapolate_box_size(flipped)
     assert ext.viscosity is None
     assert any("does not increase" in w for w in ext.warnings)
+
+
+def test_correct_each_puts_corrected_entries_beside_the_periodic_ones():
+    d1 = _d(2.0, 0.02, [3.0] * 3, group="A")
+    d2 = _d(1.0, 0.01, [3.0] * 3, group="B")
+    vacf = Estimate("self_diffusion", "vacf", 2.1, 0.1, (1.9, 2.3), "1e-9 m^2/s", group="A")
+    out = correct_each([d1, vacf, d2], _eta(0.855, 0.02))
+    assert [(e.group, e.method, e.corrected) for e in out] == [
+        ("A", "msd_gls", None), ("A", "msd_gls", "yeh_hummer"), ("A", "vacf", None),
+        ("B", "msd_gls", None), ("B", "msd_gls", "yeh_hummer")]
+    # the same correction for both species (it does not depend on the particle)
+    assert out[1].value - 2.0 == pytest.approx(out[4].value - 1.0, rel=1e-12)

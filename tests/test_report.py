@@ -183,7 +183,7 @@ def test_diffusion_figure_has_window_band_and_units(diffusion_result):
     assert "(ps)" in a_log.get_xlabel() and "(ps)" in a_lin.get_xlabel()
     assert any(isinstance(c, PolyCollection) for c in a_log.collections)  # MSD +- sd
     assert len([c for c in a_lin.collections if isinstance(c, PolyCollection)]) >= 2
-    assert "local slope" in a_slope.get_ylabel()
+    assert "d log MSD / d log t" in a_slope.get_ylabel()
 
 
 # ---- the document ------------------------------------------------------------------------------

@@ -65,6 +65,7 @@ __all__ = [
     "BoxExtrapolation",
     "cell_matrix",
     "correct_diffusion",
+    "correct_each",
     "extrapolate_box_size",
     "oseen_lattice_sum",
     "periodic_oseen",
@@ -408,6 +409,35 @@ def correct_diffusion(diffusion: Estimate, viscosity: Estimate | tuple[float, fl
     )
     return replace(diffusion, value=value, stderr=stderr, interval=interval, corrected=name,
                    diagnostics=d, curves={}, warnings=tuple(dict.fromkeys(warn)))
+
+
+def correct_each(estimates: Sequence[Estimate], viscosity: Estimate | tuple[float, float], *,
+                 temperature: float | None = None,
+                 methods: Sequence[str] = ("msd_gls",)) -> list[Estimate]:
+    """`estimates` with a corrected entry after each periodic-box D of the given methods.
+
+    Parameters
+    ----------
+    estimates : sequence of Estimate
+        Results of :func:`transport.analyse_diffusion` (others pass through unchanged).
+    viscosity : Estimate or (value, stderr)
+        As in :func:`correct_diffusion`.
+    temperature : float, optional
+        As in :func:`correct_diffusion`.
+    methods : sequence of str
+        Which estimates are corrected (default the MSD fit; the VACF cross-check is left
+        as it is).
+
+    Returns
+    -------
+    list of Estimate
+    """
+    out: list[Estimate] = []
+    for e in estimates:
+        out.append(e)
+        if e.quantity == "self_diffusion" and e.corrected is None and e.method in methods:
+            out.append(correct_diffusion(e, viscosity, temperature=temperature))
+    return out
 
 
 # ---- box-size extrapolation --------------------------------------------------------------

@@ -82,7 +82,7 @@ def diffusion_figure(msd: Sequence[Estimate], vacf: Sequence[Estimate] = ()):
                 a_lin.axvline(edge, color=col, lw=0.7, ls=":")
     a_slope.axhline(1.0, color="0.5", lw=0.6)
     a_slope.set_ylim(0.0, 2.2)
-    a_slope.set_ylabel("local slope d log MSD / d log t (dotted)")
+    a_slope.set_ylabel("d log MSD / d log t (dotted)")
     if msd:
         e0 = msd[0]
         lu = e0.diagnostics.get("msd_unit", "")
