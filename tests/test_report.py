@@ -380,3 +380,26 @@ def test_pairing_ambiguous_named_and_box_size_extrapolation(tmp_path):
     rep3 = build_report(read_documents([*paths, va]), figures=True)
     names = [f.name for f in rep3.figures]
     assert "extrapolation_SOL" in names
+
+
+def test_run_length_verdicts_are_shown(tmp_path):
+    # the layout of transport.convergence.Verdict.to_record (top-level "verdicts" list)
+    v = _v_doc(tmp_path / "v.json", 0.855, 3.0)
+    doc = json.loads(v.read_text())
+    doc["verdicts"] = [{
+        "quantity": "shear_viscosity", "method": "green_kubo", "group": None,
+        "long_enough": False, "relative_stderr": 0.081, "target_relative_stderr": 0.05,
+        "additional_time": 300.0, "time_unit": "ps", "additional_replicas": 3,
+        "wall_clock_hours": 12.5, "reasons": ["the error is 8.1%, above the 5% target"],
+        "checks": [{"name": "plateau", "passed": True}]}]
+    v.write_text(json.dumps(doc))
+    rep = build_report(read_documents([v]), figures=False)
+    from transport.report.render import render_html, render_markdown
+
+    parser = _Tables()
+    parser.feed(render_html(rep))
+    rows = parser.tables["verdicts"]
+    assert rows[1] == ["v", "shear viscosity", "-", "green kubo", "8.1%", "5.0%", "too short",
+                       "+300 ps per run (~12 h) or +3 replica(s)",
+                       "the error is 8.1%, above the 5% target"]
+    assert "| too short |" in render_markdown(rep)

@@ -73,24 +73,45 @@ def _corrections_table(report: Report) -> tuple[tuple[str, ...], list[tuple[str,
     return header, rows
 
 
+def _pct(x: Any) -> str:
+    try:
+        f = float(x)
+    except (TypeError, ValueError):
+        return "-"
+    return f"{f:.1%}" if f == f and abs(f) != float("inf") else "-"
+
+
+def _more(v: Any) -> str:
+    t = v.get("additional_time")
+    if t is None:
+        return "-"
+    if float(t) == 0 and v.get("long_enough"):
+        return "none"
+    out = f"+{_fmt(t, 3)} {v.get('time_unit') or ''} per run".replace("  ", " ")
+    if v.get("wall_clock_hours") is not None:
+        out += f" (~{_fmt(v['wall_clock_hours'], 2)} h)"
+    if v.get("additional_replicas"):
+        out += f" or +{v['additional_replicas']} replica(s)"
+    return out
+
+
 def _verdict_table(report: Report) -> tuple[tuple[str, ...], list[tuple[str, ...]]]:
-    keys: list[str] = []
-    for v in report.verdicts:
-        keys.extend(k for k in v if k not in keys)
+    """Run-length verdicts (the ``verdicts`` records of ``transport.convergence``)."""
+    header = ("source", "quantity", "group", "method", "rel. error", "target", "verdict",
+              "more simulation", "reasons")
     rows = []
     for v in report.verdicts:
-        cells = []
-        for k in keys:
-            x = v.get(k)
-            if isinstance(x, float):
-                cells.append(_fmt(x))
-            elif isinstance(x, (dict, list)):
-                cells.append(", ".join(f"{a}={b}" for a, b in x.items())
-                             if isinstance(x, dict) else ", ".join(map(str, x)))
-            else:
-                cells.append("-" if x is None else str(x))
-        rows.append(tuple(cells))
-    return tuple(keys), rows
+        le = v.get("long_enough")
+        verdict = ("long enough" if le else "too short") if isinstance(le, bool) else str(
+            v.get("verdict", "-"))
+        reasons = v.get("reasons") or ()
+        rows.append((str(v.get("source", "-")), str(v.get("quantity", "-")).replace("_", " "),
+                     str(v.get("group") or "-"), str(v.get("method", "-")).replace("_", " "),
+                     _pct(v.get("relative_stderr")), _pct(v.get("target_relative_stderr")),
+                     verdict, _more(v),
+                     "; ".join(map(str, reasons)) if not isinstance(reasons, str)
+                     else reasons))
+    return header, rows
 
 
 def _provenance(report: Report) -> list[tuple[str, ...]]:
