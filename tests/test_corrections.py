@@ -289,3 +289,26 @@ def test_correct_each_puts_corrected_entries_beside_the_periodic_ones():
         ("B", "msd_gls", None), ("B", "msd_gls", "yeh_hummer")]
     # the same correction for both species (it does not depend on the particle)
     assert out[1].value - 2.0 == pytest.approx(out[4].value - 1.0, rel=1e-12)
+
+
+def test_cell_matrix_matches_mdanalysis():
+    # reference library: MDAnalysis's triclinic_vectors (same convention: a along x, b in xy)
+    from MDAnalysis.lib.mdamath import triclinic_vectors
+
+    for dims in ([3.0, 4.0, 5.0, 90, 90, 90], [4.0, 4.0, 4.0, 60, 60, 90],
+                 [3.0, 4.5, 5.5, 80, 95, 70]):
+        ref = triclinic_vectors(np.array(dims, dtype=np.float32)).astype(float)
+        # float32 inside MDAnalysis: agreement to ~1e-6 relative
+        assert np.allclose(cell_matrix(dims[:3], dims[3:]), ref, rtol=0, atol=5e-6 * 5.5)
+
+
+def test_dodecahedron_result_from_diagnostics():
+    # a diffusion result in a rhombic dodecahedron (angles as the reader records them)
+    d = _d(2.0, 0.02, [4.0, 4.0, 4.0], angles=[60.0, 60.0, 90.0])
+    c = correct_diffusion(d, _eta(0.855, 0.02))
+    assert c.corrected == "oseen_lattice_sum"
+    assert c.diagnostics["xi_effective"] == pytest.approx(2.888282, abs=2e-6)
+    # same volume cube: volume d^3/sqrt(2) -> the correction is 1.0180x the cube's
+    cube = correct_diffusion(_d(2.0, 0.02, [4.0 / 2 ** (1 / 6)] * 3), _eta(0.855, 0.02))
+    ratio = c.diagnostics["correction"] / cube.diagnostics["correction"]
+    assert ratio == pytest.approx(1.0180, abs=2e-4)
