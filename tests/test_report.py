@@ -403,3 +403,18 @@ def test_run_length_verdicts_are_shown(tmp_path):
                        "+300 ps per run (~12 h) or +3 replica(s)",
                        "the error is 8.1%, above the 5% target"]
     assert "| too short |" in render_markdown(rep)
+
+
+def test_demo_report_step_pairs_diffusion_with_model_a(tmp_path):
+    from transport.demo import _report_step
+
+    _v_doc(tmp_path / "model_a_viscosity.json", 6.2, 4.5)
+    _v_doc(tmp_path / "model_b_viscosity.json", 4.9, 4.5)
+    _d_doc(tmp_path / "diffusion.json", 0.35, 4.5)
+    lines: list[str] = []
+    html = _report_step(tmp_path, lines.append)
+    assert html == tmp_path / "report" / "report.html" and html.exists()
+    assert str(html) in lines[-1]
+    merged = json.loads((tmp_path / "report" / "report.json").read_text())
+    (c,) = merged["corrections"]
+    assert c["viscosity"] == 6.2 and "model_a_viscosity.json" in c["pairing"]
