@@ -13,6 +13,8 @@ Estimators
 Run-length verdicts
     viscosity_verdicts, diffusion_verdicts             is the run long enough for a target?
     run_verdict, Verdict                               the pure judgement on given results
+Corrections (pure functions of results)
+    correct_diffusion, extrapolate_box_size            finite-size correction of D
 Errors
     InputError, RunTooShortError
 
@@ -33,6 +35,8 @@ __version__ = "0.1.0"
 _WHERE: dict[str, str] = {
     "Verdict": "convergence",
     "run_verdict": "convergence",
+    "correct_diffusion": "corrections",
+    "extrapolate_box_size": "corrections",
     "DiffusionAnalysis": "diffusion",
     "analyse_diffusion": "diffusion",
     "msd_diffusion": "diffusion",
@@ -74,8 +78,10 @@ __all__ = [
     "__version__",
     "analyse_diffusion",
     "analyse_viscosity",
+    "correct_diffusion",
     "diffusion_verdicts",
     "einstein",
+    "extrapolate_box_size",
     "get_unit_system",
     "green_kubo",
     "load_stress",
@@ -95,6 +101,7 @@ __getattr__, __dir__ = lazy_names(__name__, globals(), _WHERE, __all__)
 
 if TYPE_CHECKING:  # pragma: no cover - for type checkers and editors
     from .convergence import Verdict, run_verdict
+    from .corrections import correct_diffusion, extrapolate_box_size
     from .diffusion import DiffusionAnalysis, analyse_diffusion, msd_diffusion, vacf_diffusion
     from .errors import InputError, RunTooShortError
     from .estimate import Estimate

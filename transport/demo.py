@@ -262,7 +262,8 @@ def run_demo(
         echo(f"  {m.label}: Green–Kubo {gk.value:.2f} ± {gk.stderr:.2f} mPa s, "
              f"{dev:+.2f} mPa s ({dev / sc.experiment_mpas:+.0%}) from experiment")
     results["diffusion"] = _diffusion_step(outdir, rng, echo)
-    _run_length_step(files, echo)
+    _run_length_step(files, echo, out=outdir)
+    _report_step(outdir, echo)
     echo("")
     echo("caution: a transport coefficient is only as good as the potential and the sampling;")
     echo("thermostat coupling and the treatment of electrostatics bias it. Check against")
@@ -380,13 +381,14 @@ _PILOT_FRACTION = {"model_a": 0.1}
 
 
 def _run_length_step(files: dict[str, list[Path]], echo: Callable[[str], None],
-                     target: float = 0.05) -> list:
+                     target: float = 0.05, out: Path | None = None) -> list:
     """Run-length verdicts for a 5% target: model A's pilot, model B's production runs.
 
     Model A's pilot is the first tenth of each of its production replicas, so the demo
     shows the verdict on the pilot (too short), its projection, and then the error the full
     production actually gave. The demo logs carry a placeholder loop time, so no wall-clock
-    hours are projected. Returns the verdicts.
+    hours are projected. With `out`, the verdicts are also written to
+    ``out/run_length.json``. Returns the verdicts.
     """
     from dataclasses import replace
 
@@ -428,4 +430,33 @@ def _run_length_step(files: dict[str, list[Path]], echo: Callable[[str], None],
             echo(f"  check: the full {t_full:.4g} {v.time_unit} runs gave "
                  f"{gf.stderr / abs(gf.value):.1%}; the pilot's projection for that length "
                  f"was {pred:.1%}")
+    if out is not None:  # the verdicts as a result document (the report shows them)
+        from .report.jsonout import build_document, write_json
+
+        write_json(build_document("demo", inputs=[], settings={"target": target,
+                                                               "pilot": _PILOT_FRACTION},
+                                  results=[], extra={"verdicts": [v.to_record()
+                                                                  for v in verdicts]}),
+                   out / "run_length.json")
     return verdicts
+
+
+def _report_step(outdir: Path, echo: Callable[[str], None]) -> Path:
+    """Write the report of the whole scenario from the JSON results into ``outdir/report``.
+
+    The diffusion trajectory is taken as run with model A, so its finite-size correction
+    uses model A's viscosity (named together, as ``transport report --pair`` does).
+    Returns the path of the HTML document.
+    """
+    from .report.document import build_report, read_documents, write_report
+
+    visc = [outdir / f"{m.name}_viscosity.json" for m in SCENARIO.models]
+    diff = outdir / "diffusion.json"
+    verdicts = [outdir / "run_length.json"] if (outdir / "run_length.json").exists() else []
+    docs = read_documents([*visc, diff, *verdicts])
+    report = build_report(docs, pairs=[(str(diff), str(visc[0]))],
+                          title=f"transport demo: {SCENARIO.liquid}")
+    html = write_report(report, outdir / "report")
+    echo("")
+    echo(f"report (HTML with figures, Markdown twin, merged JSON): {html}")
+    return html

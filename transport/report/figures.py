@@ -42,6 +42,9 @@ def save_figure(fig, path: str | os.PathLike[str]) -> None:
     os.close(fd)
     try:
         fig.savefig(tmp, format=fmt, dpi=120)
+        from .jsonout import _umask
+
+        os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; give the usual mode
         os.replace(tmp, p)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)

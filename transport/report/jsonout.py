@@ -10,8 +10,14 @@ Layout (stable keys; later commands add their own top-level keys)::
       "warnings": ["...", ...],
       "results":  [{"quantity", "method", "value", "stderr", "interval95", "unit",
                     "group", "corrected", "window", "window_unit", "n_independent",
-                    "diagnostics", "warnings"}, ...]
+                    "diagnostics", "warnings"}, ...],
+      "curves":   [{"time": [...], ...} or null, ...]   (one per result, thinned)
     }
+
+``curves`` holds each estimate's plot curves thinned to at most ``MAX_CURVE_POINTS``
+points (the union of an even and a logarithmic grid of indices, so that both early lags and
+the tail keep their shape); arrays of one length share their indices. ``transport report``
+redraws the diagnostic figures from them without the raw files.
 """
 
 from __future__ import annotations
@@ -24,10 +30,40 @@ from collections.abc import Iterable, Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+
 from ..estimate import Estimate, _jsonable
 from ..series import Source
 
-__all__ = ["build_document", "dumps", "write_json"]
+__all__ = ["MAX_CURVE_POINTS", "build_document", "curves_record", "dumps", "write_json"]
+
+#: Largest number of points kept per curve in the JSON document.
+MAX_CURVE_POINTS = 600
+
+
+def _thin_indices(n: int, max_points: int) -> np.ndarray:
+    if n <= max_points:
+        return np.arange(n)
+    half = max_points // 2
+    lin = np.linspace(0, n - 1, half).round().astype(np.int64)
+    log = np.geomspace(1, n - 1, max_points - half).round().astype(np.int64)
+    return np.unique(np.concatenate([[0], lin, log, [n - 1]]))
+
+
+def curves_record(curves: Mapping[str, Any], *,
+                  max_points: int = MAX_CURVE_POINTS) -> dict[str, list] | None:
+    """The 1-D curves of an estimate thinned to at most about `max_points` points each.
+
+    Arrays of the same length are thinned with the same indices (they are plotted against
+    each other); non-finite values become null. None when there are no curves.
+    """
+    out: dict[str, list] = {}
+    for name, arr in curves.items():
+        a = np.asarray(arr)
+        if a.ndim != 1 or not np.issubdtype(a.dtype, np.number):
+            continue
+        out[name] = _jsonable(a[_thin_indices(a.size, max_points)])
+    return out or None
 
 
 def build_document(
@@ -66,6 +102,7 @@ def build_document(
         "settings": _jsonable(dict(settings)),
         "warnings": all_warnings,
         "results": [r.to_record() for r in results],
+        "curves": [curves_record(r.curves) for r in results],
     }
     if extra:
         for k, v in extra.items():
@@ -90,12 +127,19 @@ def write_json(doc: Mapping[str, Any], path: str | os.PathLike[str]) -> None:
     _atomic_write_text(Path(path), text)
 
 
+def _umask() -> int:
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
+
+
 def _atomic_write_text(path: Path, text: str) -> None:
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
     try:
         with os.fdopen(fd, "w", encoding="utf-8") as fh:
             fh.write(text)
+        os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; give the usual mode
         os.replace(tmp, path)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
