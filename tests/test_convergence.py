@@ -136,6 +136,25 @@ def test_still_rising_integral_is_not_long_enough_whatever_the_precision():
     assert names["levels_off"].passed is False and names["precision"].passed
 
 
+def test_unresolved_slow_relaxation_is_a_caution():
+    # the viscosity estimator's own finding (decorrelation time growing with the data as
+    # T^0.8) is shown as a caution (a heuristic; the running integral's rise blocks); a
+    # missing key is tolerated (no such check)
+    d = {"pieces": 20, "cutoff": 5.0, "still_rising": False, "decorrelation_time": 0.5,
+         "skipped": [0.0], "decorrelation_resolved": False,
+         "decorrelation_growth_exponent": 0.8}
+    v = run_verdict(_est(3.0, 0.03, window=(0.0, 5.0), diagnostics=d), target=0.05,
+                    run_times=[400.0])
+    c = {c.name: c for c in v.checks}["slow_relaxation_resolved"]
+    assert c.passed is False and not c.blocking and c.value == 0.8
+    assert any("does not resolve" in r for r in v.reasons)
+    del d["decorrelation_resolved"]
+    v = run_verdict(_est(3.0, 0.03, window=(0.0, 5.0), diagnostics=d), target=0.05,
+                    run_times=[400.0])
+    assert v.long_enough
+    assert "slow_relaxation_resolved" not in {c.name for c in v.checks}
+
+
 def test_short_run_against_decorrelation_asks_for_the_length_rule():
     # 30 ps of data with a 0.5 ps decorrelation time: 60 decorrelation times, below the
     # 100 the checks ask for (10 pieces of 10): 50 ps of data are needed, 20 ps more.
@@ -164,7 +183,7 @@ def _msd_estimate(unwrap, box=4.0):
     d = {"box_lengths": [box] * 3, "box_volume": box**3, "n_particles": 8,
          "length_unit": "nm", "unwrap": [unwrap], "block_count": 8}
     curves = {"time": t, "msd": 0.3 * t, "slope_time": t[1:], "local_slope": np.ones(1000)}
-    return _est(0.05, 0.0005, method="msd_gls", quantity="self_diffusion",
+    return _est(0.05, 0.0005, method="msd_wls", quantity="self_diffusion",
                 window=(1.0, 25.0), diagnostics=d, curves=curves, group="A")
 
 
@@ -260,40 +279,43 @@ def _brownian(rng, n_frames, n_part=20):
 
 
 def test_diffusion_too_short_and_long_enough():
-    # Target 1.5%. 20 particles: r ~ 2.2% at 250 frames, ~ 1.1% at 1000 frames (measured on
-    # other seeds). The particle spacing (125/20)^(1/3) = 1.8 is passed within the window
-    # (rms at the window end 1.4 and 2.7): the short run fails twice over.
-    s = _brownian(np.random.default_rng(110), 250)
+    # Target 2%. The MSD error bar is the scatter of 8 time blocks (uncertain by ~27% each).
+    # 10 particles x 200 frames: r ~ 5% (the window, half a block, also ends before the
+    # particles pass their spacing (125/10)^(1/3) = 2.3: blocked twice over); 40 particles x
+    # 4000 frames: r ~ 0.9% (0.6-1.4% over other seeds). Far on either side of 2%.
+    s = _brownian(np.random.default_rng(110), 200, n_part=10)
     e = analyse_diffusion(s, remove_drift=False, vacf="no").msd
-    v = diffusion_verdicts(s, e, target=0.015, remove_drift=False)[0]
+    v = diffusion_verdicts(s, e, target=0.02, remove_drift=False)[0]
     assert not v.long_enough and v.additional_time > 0
-    s = _brownian(np.random.default_rng(111), 1000)
+    s = _brownian(np.random.default_rng(111), 4000, n_part=40)
     e = analyse_diffusion(s, remove_drift=False, vacf="no").msd
-    v = diffusion_verdicts(s, e, target=0.015, remove_drift=False)[0]
+    v = diffusion_verdicts(s, e, target=0.02, remove_drift=False)[0]
     assert v.long_enough, v.reasons
     assert {c.name for c in v.checks} >= {"diffusive_regime", "window_use", "rms_displacement",
-                                          "precision"}
+                                          "block_check", "precision"}
 
 
 def test_diffusion_projection_and_stated_time_hold():
-    # The MSD error falls as 1/sqrt(T) (GLS over a window that grows with the run; checked
-    # here on the parts). (1) Projection to 4x: median ratio within 25% over 8 seeds.
-    # (2) The additional time stated for a 1% target, actually simulated, gives an error
-    # within 25% of 1% (median over the same seeds). Noise per ratio ~15-20% (block and
-    # Birge factors of 1-1.4 measured in these runs).
+    # The MSD is fitted in 8 time blocks with the window inside each (half a block), so the
+    # window grows with the run and the error falls slower than 1/sqrt(T) (~T^-0.3 here);
+    # the verdict measures it on the parts. (1) Projection to 4x: median ratio within 25%
+    # over 16 seeds (measured 0.86). (2) The additional time stated for a 1.5% target,
+    # actually simulated (capped at the 4x run), gives an error within 25% of 1.5% (median;
+    # measured 0.94). Noise: each error bar from 8 blocks scatters by ~27%, a ratio of two
+    # by ~0.4 in log, the median of 16 by ~0.12: 25% is ~1.9 sd.
     ratios, reached = [], []
-    for seed in range(8):
+    for seed in range(16):
         rng = np.random.default_rng(seed)
         x = brownian_positions(4000, 20, DT_B, D_TRUE, BOX, rng)
         s = positions_from_arrays(x[:1000], BOX, DT_B)
         e = analyse_diffusion(s, remove_drift=False, vacf="no").msd
-        v = diffusion_verdicts(s, e, target=0.01, remove_drift=False)[0]
+        v = diffusion_verdicts(s, e, target=0.015, remove_drift=False)[0]
         full = positions_from_arrays(x, BOX, DT_B)
         el = analyse_diffusion(full, remove_drift=False, vacf="no").msd[0]
         ratios.append(v.relative_stderr * 4.0 ** -v.scaling.exponent / (el.stderr / el.value))
         frames = min(4000, 1000 + int(round(v.additional_time / DT_B)))
         em = analyse_diffusion(positions_from_arrays(x[:frames], BOX, DT_B),
                                remove_drift=False, vacf="no").msd[0]
-        reached.append(em.stderr / em.value / 0.01)
+        reached.append(em.stderr / em.value / 0.015)
     assert 0.75 <= float(np.median(ratios)) <= 1.25, ratios
     assert 0.75 <= float(np.median(reached)) <= 1.25, reached

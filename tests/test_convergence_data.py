@@ -57,29 +57,29 @@ def test_green_kubo_projection_from_the_first_quarter_of_real_logs():
     ratio = predicted / (gf.stderr / gf.value)
     assert 1 / 1.5 <= ratio <= 1.5, ratio
     # every named check was made from the diagnostics (none missing)
-    assert {c.name for c in v.checks} == {"run_vs_decorrelation", "independent_pieces",
+    assert {c.name for c in v.checks} >= {"run_vs_decorrelation", "independent_pieces",
                                           "levels_off", "transient", "precision"}
     assert all(c.passed is not None for c in v.checks)
 
 
 def test_diffusion_projection_from_the_first_quarter_of_a_real_trajectory():
-    # LJ liquid, 1372 atoms, 100 tau. The first quarter (100 frames) is too short for four
-    # time blocks, so its error bar is the random-walk model's, which treats atoms as
-    # independent; the whole run's error bar carries the block scatter (collective motion;
-    # ~1.8x on this liquid, see DESIGN.md). So the projection is expected to be too
-    # optimistic by about that factor, and the verdict must say the error bar was not
-    # checked on blocks. Factor allowed: 2.5 (1.8 from the missing block factor, times the
-    # ~25% scatter of the block factor itself from 8 blocks). Measured: 0.57.
+    # LJ liquid, 1372 atoms, 100 tau. The first quarter (25 tau, 100 frames) holds 4 time
+    # blocks, and its fit window (half a block) ends before the atoms pass their spacing
+    # (rms 0.77 against (V/N)^(1/3) = 1.06 sigma): the verdict must say it is not long
+    # enough whatever its precision. Its projection to the whole run is held within a factor
+    # 2.5: the quarter's error bar rests on 4 blocks (uncertain by ~41%), the whole's on 8
+    # (~27%), and the window grows with the run (the error falls slower than 1/sqrt(T)).
+    # Measured: 0.46.
     s = load_trajectory(LJ_DIFF / "lj.data", [LJ_DIFF / "lj_diff.dcd"], units="lj",
                         timestep=0.005)
     q = [_positions_part(x, 0, x.n_frames // 4 + 1) for x in s]
     e = analyse_diffusion(q, vacf="no").msd
     v = diffusion_verdicts(q, e, target=0.01)[0]
-    blocks = {c.name: c for c in v.checks}["block_check"]
-    assert blocks.passed is False and not blocks.blocking
+    rms = {c.name: c for c in v.checks}["rms_displacement"]
+    assert rms.passed is False and rms.blocking and not v.long_enough
     ef = analyse_diffusion(s, vacf="no").msd[0]
     ratio = v.relative_stderr * 4.0 ** -v.scaling.exponent / (ef.stderr / ef.value)
-    assert 1 / 2.5 <= ratio <= 1.0, ratio
+    assert 1 / 2.5 <= ratio <= 2.5, ratio
 
 
 # ---- command line -------------------------------------------------------------------------
@@ -163,7 +163,7 @@ def test_check_tells_trajectories_from_stress_by_content():
     assert r.exit_code == 0, r.output
     doc = json.loads(r.output)
     (v,) = doc["verdicts"]
-    assert v["quantity"] == "self_diffusion" and v["method"] == "msd_gls"
-    assert v["long_enough"] is True  # 1.1% against 5%
+    assert v["quantity"] == "self_diffusion" and v["method"] == "msd_wls"
+    assert v["long_enough"] is True  # 1.6% against 5%
     names = {c["name"] for c in v["checks"]}
     assert {"diffusive_regime", "window_use", "rms_displacement", "precision"} <= names

@@ -203,7 +203,7 @@ def run_diffusion(ctx: click.Context, topology: str, trajectories: tuple[str, ..
         if target_f is None:
             raise
         verdict_only(ctx, command, exc, quantity_of="diffusion", series=series,
-                     target=target_f, strict=strict, method="msd_gls", json_path=json_path,
+                     target=target_f, strict=strict, method="msd_wls", json_path=json_path,
                      settings=settings, inputs=[src for s in series for src in s.sources])
         return
     verdicts = ()

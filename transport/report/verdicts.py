@@ -14,8 +14,8 @@ __all__ = ["format_verdicts"]
 def _more(v: Verdict) -> str:
     if v.additional_time is None:
         return "-"
-    if v.additional_time == 0 and v.long_enough:
-        return "none"
+    if v.additional_time == 0:
+        return "none" if v.long_enough else "-"
     t = f"+{format_number(v.additional_time, 3)} {v.time_unit} per run".strip()
     if v.wall_clock_hours is not None:
         t += f" (~{format_number(v.wall_clock_hours, 2)} h)"
