@@ -6,6 +6,7 @@ import json
 
 import numpy as np
 import pytest
+from scipy import stats
 
 from transport.report.jsonout import build_document, dumps
 from transport.stats import ar1, mean_with_error, ornstein_uhlenbeck
@@ -37,8 +38,11 @@ def test_ou_mean_error_and_correlation_time_in_time_units():
     # blocking cross-check agrees within its own uncertainty (plus the tau bar's)
     assert abs(d["blocking_stderr"] - est.stderr) <= 3 * np.hypot(
         d["blocking_stderr_error"], rel * est.stderr)
-    # interval: Student t with N / (2M + 1) degrees of freedom
-    assert est.interval[1] - est.value == pytest.approx(d["t_quantile"] * est.stderr)
+    # interval: Student t with N / (2M + 1) degrees of freedom, quantile from scipy.stats
+    assert d["dof"] == pytest.approx(n / (2 * d["tau_window_samples"] + 1), rel=1e-12)
+    q = stats.t.ppf(0.975, n / (2 * d["tau_window_samples"] + 1))
+    assert est.interval[1] - est.value == pytest.approx(q * est.stderr, rel=1e-12)
+    assert est.value - est.interval[0] == pytest.approx(q * est.stderr, rel=1e-12)
     assert est.warnings == ()
     for key in ("acf", "acf_lag", "blocking_block_time", "blocking_stderr"):
         assert est.curves[key].ndim == 1
