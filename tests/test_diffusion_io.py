@@ -217,6 +217,7 @@ def test_dcd_brownian_units_species_and_truth(tmp_path):
     assert s.dt == pytest.approx(2e-12, rel=1e-6)  # DCD stores the step in AKMA units
     np.testing.assert_allclose(s.box[0], 25e-10, rtol=1e-6)
     assert s.species_names == ("OIL", "ADD")
+    # carbon's 12 Da; 1 Da = 1.66053906660e-27 kg (CODATA 2018, from memory)
     assert s.masses[0] == pytest.approx(12.0 * 1.66053906660e-27)
     assert s.positions.dtype == np.float32
     res = analyse_diffusion(s)

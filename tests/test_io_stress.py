@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from conftest import examples
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
@@ -32,7 +33,7 @@ def table_in(units: str, p_si: np.ndarray, dt_si: float, vol_si: np.ndarray, str
                  source=Source(path="mem", format="table"))
 
 
-@settings(max_examples=60, deadline=None)
+@settings(max_examples=examples(60), deadline=None)
 @given(
     a=st.sampled_from(SI_SYSTEMS), b=st.sampled_from(SI_SYSTEMS),
     seed=st.integers(0, 2**32 - 1), n=st.integers(4, 40), stride=st.integers(1, 50),
