@@ -24,7 +24,7 @@ from conftest import DATA, committed
 
 from transport.cli import main
 from transport.diffusion import analyse_diffusion
-from transport.io import load_stress, read_table
+from transport.io import load_stress
 from transport.io.trajectory import load_trajectory
 from transport.synthetic import OUStressModel, brownian_positions
 from transport.viscosity import analyse_viscosity
