@@ -444,7 +444,11 @@ def test_vacf_agrees_with_msd_and_truth():
 @pytest.mark.slow
 def test_vacf_and_msd_coverage_on_inertial_motion():
     # Not required by the issue for non-Brownian data, but the same 92-98% band is checked
-    # on 120 seeds of OU motion (binomial sd 2%: allow 0.90-0.99).
+    # on 120 seeds of OU motion (binomial sd 2%: allow 0.90-0.99). Stated power: a true
+    # coverage of 0.95 passes with probability 0.99, but one of 0.90 still passes with
+    # probability 0.58 (scipy.stats.binom), so this test catches error bars ~2x too small
+    # (coverage ~0.66), not a coverage of 0.90; telling those apart needs ~1000 seeds
+    # (~6 min here), left to benchmarks. Brownian coverage: test_coverage_* above.
     dt, tau = 0.1, 1.0
     truth = _ou_truth(dt, tau)
     hm, hv = [], []
