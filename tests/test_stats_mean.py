@@ -121,3 +121,34 @@ def test_non_finite_sample_is_named():
     x[42] = np.nan
     with pytest.raises(ValueError, match="sample 42"):
         mean_with_error(x)
+
+
+def _ar1_var_of_mean(phi: float, n: int, sigma: float = 1.0) -> float:
+    """Exact variance of the mean of n samples of a stationary AR(1) (textbook result)."""
+    return sigma**2 * ((1 + phi) / (1 - phi)
+                       - 2 * phi * (1 - phi**n) / (n * (1 - phi) ** 2)) / n
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_slow_small_tail_is_caught_by_blocking(seed):
+    # Fast large correlations (AR(1) phi = 0.5, sd 1) plus a small slow part (phi = 0.998,
+    # sd 0.15): rho ~ 0.02 at long lags carries ~90% of the variance of the mean, which
+    # Sokal's window (~10 samples) misses: the autocorrelation-time error is ~0.37 of the
+    # exact one (sum of the two exact AR(1) variances of the mean). Block averaging sees
+    # the whole integral, and mean_with_error then reports it (the n-hexane temperature
+    # behaves like this, tests/test_average_calibration.py). Tolerance: 3 of the blocking
+    # error's own standard deviations (~8% here), so an error 2x off fails.
+    n = 2**18
+    rng = np.random.default_rng(900 + seed)
+    x = ar1(0.5, n, rng=rng) + ar1(0.998, n, rng=rng, sigma=0.15)
+    exact = np.sqrt(_ar1_var_of_mean(0.5, n) + _ar1_var_of_mean(0.998, n, 0.15))
+    est = mean_with_error(x, skip=None)
+    d = est.diagnostics
+    assert d["stderr_source"] == "blocking"
+    assert abs(est.stderr - exact) <= 3 * d["blocking_stderr_error"], est.stderr / exact
+    assert any("slow tail" in w for w in est.warnings)
+    q = stats.t.ppf(0.975, d["blocking_n_blocks"] - 1)  # Student t, blocks - 1 dof
+    assert est.interval == pytest.approx((est.value - q * est.stderr,
+                                          est.value + q * est.stderr), rel=1e-12)
+    # control: the autocorrelation-time error alone is far too small on these data
+    assert d["stderr_autocorrelation_time"] < 0.5 * exact
