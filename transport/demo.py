@@ -380,8 +380,8 @@ def _diffusion_step(outdir: Path, rng: np.random.Generator,
     echo("")
     echo(f"self-diffusion: {n} molecules of two species in the {box:g} Angstrom box, "
          f"{n_frames} frames {dt_ps:g} ps apart (synthetic Brownian motion with known D)")
-    echo(format_estimates(res.estimates, title="MSD fitted by generalized least squares",
-                          notes=res.notes))
+    echo(format_estimates(res.estimates, notes=res.notes,
+                          title="MSD fitted over its diffusive window, error from time blocks"))
     for e in res.msd:
         sp = next(s for s in DIFFUSION_SPECIES if s.resname == e.group)
         hit = e.interval[0] <= truth[sp.resname] <= e.interval[1]

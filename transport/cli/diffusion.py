@@ -123,8 +123,8 @@ def diffusion(ctx: click.Context, topology: str, trajectories: tuple[str, ...], 
               scratch: str | None, viscosity: str | None, stress_files: tuple[str, ...],
               json_path: str | None, plot_path: str | None) -> None:
     """Self-diffusion from TOPOLOGY and TRAJECTORIES (several files = replicas, or parts of
-    one run with --continue), per species, with the MSD fitted by generalized least squares
-    and the VACF as a cross-check."""
+    one run with --continue), per species, with the MSD fitted over its diffusive window,
+    the error bar from independent time blocks, and the VACF as a cross-check."""
     from .._progress import want_progress
     from ..diffusion import analyse_diffusion
     from ..io.trajectory import load_trajectory
