@@ -15,8 +15,8 @@ import math
 
 import numpy as np
 import pytest
-import statsmodels.api as sm
 from scipy import integrate, stats
+from statsmodels.regression.linear_model import WLS
 from statsmodels.stats.multitest import multipletests
 
 from transport.compare import (
@@ -77,7 +77,7 @@ def test_pooled_mean_matches_statsmodels_wls_when_consistent():
     v = np.array([3.10, 3.02, 3.21, 3.05])
     s = np.array([0.08, 0.05, 0.12, 0.06])
     pooled = pool_replicas([_est(x, e) for x, e in zip(v, s, strict=True)])
-    fit = sm.WLS(v, np.ones_like(v), weights=1 / s**2).fit(
+    fit = WLS(v, np.ones_like(v), weights=1 / s**2).fit(
         cov_type="fixed scale", cov_kwds={"scale": 1.0})
     assert pooled.method == "inverse_variance_mean"
     assert pooled.value == pytest.approx(fit.params[0], rel=1e-13)
@@ -99,7 +99,7 @@ def test_pooled_error_is_widened_by_the_birge_ratio_when_replicas_disagree():
     v = np.array([3.10, 2.70, 3.45, 3.05])
     s = np.array([0.08, 0.05, 0.12, 0.06])
     pooled = pool_replicas([_est(x, e) for x, e in zip(v, s, strict=True)])
-    fit = sm.WLS(v, np.ones_like(v), weights=1 / s**2).fit()
+    fit = WLS(v, np.ones_like(v), weights=1 / s**2).fit()
     assert pooled.diagnostics["chi2_p_value"] < 0.05
     assert pooled.diagnostics["widened"]
     assert pooled.stderr == pytest.approx(fit.bse[0], rel=1e-12)
@@ -208,19 +208,19 @@ def test_deviation_refuses_other_units_and_warns_on_a_rough_reference():
 # Holm and the pairwise tests
 
 
-@pytest.mark.parametrize("m", [1, 2, 3, 6, 10, 45])
+@pytest.mark.parametrize("m", [1, 3, 6, 45])
 def test_holm_matches_statsmodels(m):
     # Reference: statsmodels.stats.multitest.multipletests(method="holm"); p-values with
-    # ties and some near the rejection boundaries
+    # ties and some near the rejection boundaries. (multipletests runs gc.collect on every
+    # call, ~0.1 s here, hence few calls.)
     rng = np.random.default_rng(100 + m)
     p = rng.uniform(0, 0.2, m) ** 2
     if m > 2:
         p[1] = p[0]  # a tie
     ours = holm_adjust(p)
-    for alpha in (0.01, 0.05, 0.1):
-        reject, p_sm, _, _ = multipletests(p, alpha=alpha, method="holm")
-        np.testing.assert_allclose(ours, p_sm, rtol=1e-14, atol=0)
-        np.testing.assert_array_equal(ours <= alpha, reject)
+    reject, p_sm, _, _ = multipletests(p, alpha=0.05, method="holm")
+    np.testing.assert_allclose(ours, p_sm, rtol=1e-14, atol=0)
+    np.testing.assert_array_equal(ours <= 0.05, reject)
 
 
 def test_pairwise_z_test_against_scipy_normal():
