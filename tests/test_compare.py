@@ -15,6 +15,8 @@ import math
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from scipy import integrate, stats
 from statsmodels.regression.linear_model import WLS
 from statsmodels.stats.multitest import multipletests
@@ -169,6 +171,27 @@ def test_a_single_replica_is_returned_as_is_and_units_must_agree():
         pool_replicas([])
 
 
+@settings(max_examples=40, deadline=None)
+@given(values=st.lists(st.floats(-5, 5), min_size=2, max_size=6),
+       errs=st.lists(st.floats(0.05, 2.0), min_size=6, max_size=6),
+       factor=st.floats(0.01, 100.0), seed=st.integers(0, 2**32 - 1))
+def test_pooling_is_invariant_to_order_and_scales_with_the_unit(values, errs, factor, seed):
+    # invariants: replicas in any order give the same pooled estimate; changing the unit
+    # (Estimate.scaled) scales value and stderr by the factor and leaves the chi-square
+    reps = [_est(v, e) for v, e in zip(values, errs, strict=False)]
+    base = pool_replicas(reps)
+    perm = np.random.default_rng(seed).permutation(len(reps))
+    shuffled = pool_replicas([reps[i] for i in perm])
+    assert shuffled.value == pytest.approx(base.value, rel=1e-12, abs=1e-12)
+    assert shuffled.stderr == pytest.approx(base.stderr, rel=1e-12)
+    scaled = pool_replicas([e.scaled(factor, "cP x") for e in reps])
+    assert scaled.value == pytest.approx(factor * base.value, rel=1e-10, abs=1e-12)
+    assert scaled.stderr == pytest.approx(factor * base.stderr, rel=1e-10)
+    assert scaled.diagnostics["chi2"] == pytest.approx(base.diagnostics["chi2"], rel=1e-9,
+                                                       abs=1e-12)
+    assert scaled.unit == "cP x"
+
+
 # ---------------------------------------------------------------------------------------
 # deviation from the reference
 
@@ -196,6 +219,10 @@ def test_percent_error_agrees_with_monte_carlo_for_small_errors():
 
 
 def test_deviation_refuses_other_units_and_warns_on_a_rough_reference():
+    with pytest.raises(ValueError, match="stderr must be finite and >= 0"):
+        Reference(1.0, -0.1, UNIT)
+    with pytest.raises(ValueError, match=r"must be a transport\.compare\.Reference"):
+        deviation_from_reference(_est(1.0, 0.1), (1.0, 0.1))
     with pytest.raises(ValueError, match="reference is in 'cP'"):
         deviation_from_reference(_est(1.0, 0.1), Reference(1.0, 0.1, "cP"))
     d = deviation_from_reference(_est(1.0, 0.1), Reference(0.5, 0.1, UNIT))
@@ -259,6 +286,14 @@ def test_pairwise_welch_t_against_scipy():
     # one side normal, the other with 4 dof: Satterthwaite gives (s1^2+s2^2)^2 / (s2^4/4)
     (row,) = pairwise_differences({"a": _est(1.0, 0.1), "b": _est(1.2, 0.1, n=5)})
     assert row.dof == pytest.approx(16.0, rel=1e-6)
+
+
+def test_swapping_two_candidates_flips_the_sign_only():
+    a, b = _est(1.3, 0.05, n=6), _est(1.1, 0.04)
+    (ab,) = pairwise_differences({"a": a, "b": b})
+    (ba,) = pairwise_differences({"b": b, "a": a})
+    assert ba.difference == -ab.difference and ba.p_value == ab.p_value
+    assert ba.interval == pytest.approx((-ab.interval[1], -ab.interval[0]))
 
 
 def test_pairwise_refuses_mixed_units_and_missing_errors():
