@@ -460,3 +460,13 @@ def test_ranking_refuses_bad_inputs_and_flags_a_close_call():
     rank = rank_candidates(cands, Reference(1.01, 0.05, UNIT), rng=np.random.default_rng(0),
                            n_draws=20_000)
     assert any("not decisive" in w for w in rank.warnings)
+
+
+def test_docstring_examples_run():
+    # the numbers in the docstrings' Examples (checked by hand there) stay true
+    import doctest
+
+    import transport.compare
+
+    result = doctest.testmod(transport.compare)
+    assert result.failed == 0 and result.attempted >= 8

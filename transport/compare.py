@@ -294,7 +294,10 @@ def estimate_dof(estimate: Estimate) -> float:
 
     The smaller of ``n_independent - 1`` (when stated and > 1) and the dof implied by the
     95% interval: its mean half-width over `stderr` is taken as a Student t quantile
-    ``t_{0.975, dof}``; a ratio at or below the normal quantile 1.96 implies ``inf``.
+    ``t_{0.975, dof}``. Either above ``DOF_MAX`` (1000) counts as ``inf`` (normal), so a
+    +-1.96 stderr interval or an ``n_independent`` of 5,000 particles means a normal error
+    bar. Why both: estimators state the dof they used in their interval (the MSD estimate
+    counts particles in ``n_independent`` while its error bar rests on a few time blocks).
 
     Parameters
     ----------
