@@ -8,7 +8,8 @@ Then, side by side, each in a fresh process, alternating, ``--repeat`` times:
 * ``mda-read``: MDAnalysis opens the Universe, iterates over every frame and copies the
   positions into a preallocated float32 array (the floor of any analysis through it);
 * ``lib``: ``transport.io.trajectory.load_trajectory`` + ``transport.diffusion.
-  analyse_diffusion`` (unwrapping, drift removal, FFT MSD, window, GLS fit), which is what
+  analyse_diffusion`` (unwrapping, drift removal, FFT MSD, window, weighted fit on time
+  blocks), which is what
   the ``diffusion`` command runs;
 * ``cli``: the ``transport diffusion TOPOLOGY TRAJECTORY -q`` command itself;
 * ``mda-msd``: ``MDAnalysis.analysis.msd.EinsteinMSD(fft=False)`` (direct average over all

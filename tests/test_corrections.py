@@ -36,7 +36,7 @@ M_WATER = 18.01528e-3  # kg/mol (common practice)
 def _d(value: float, stderr: float, box: list[float], *, angles=None, temperature=298.0,
        unit: str = "1e-9 m^2/s", length_unit: str = "nm", group: str = "SOL") -> Estimate:
     return Estimate(
-        "self_diffusion", "msd_gls", value, stderr, (value - 1.96 * stderr,
+        "self_diffusion", "msd_wls", value, stderr, (value - 1.96 * stderr,
                                                      value + 1.96 * stderr), unit,
         group=group, diagnostics={"box_lengths": box, "box_angles": angles,
                                   "length_unit": length_unit, "temperature": temperature})
@@ -195,7 +195,7 @@ def test_error_propagation_against_monte_carlo():
 
 
 def test_interval_is_shifted_and_widened():
-    d = Estimate("self_diffusion", "msd_gls", 2.0, 0.02, (1.95, 2.06), "1e-9 m^2/s",
+    d = Estimate("self_diffusion", "msd_wls", 2.0, 0.02, (1.95, 2.06), "1e-9 m^2/s",
                  diagnostics={"box_lengths": [3.0] * 3, "length_unit": "nm",
                               "temperature": 298.0})
     c = correct_diffusion(d, (0.855, 0.05))
@@ -285,8 +285,8 @@ def test_correct_each_puts_corrected_entries_beside_the_periodic_ones():
     vacf = Estimate("self_diffusion", "vacf", 2.1, 0.1, (1.9, 2.3), "1e-9 m^2/s", group="A")
     out = correct_each([d1, vacf, d2], _eta(0.855, 0.02))
     assert [(e.group, e.method, e.corrected) for e in out] == [
-        ("A", "msd_gls", None), ("A", "msd_gls", "yeh_hummer"), ("A", "vacf", None),
-        ("B", "msd_gls", None), ("B", "msd_gls", "yeh_hummer")]
+        ("A", "msd_wls", None), ("A", "msd_wls", "yeh_hummer"), ("A", "vacf", None),
+        ("B", "msd_wls", None), ("B", "msd_wls", "yeh_hummer")]
     # the same correction for both species (it does not depend on the particle)
     assert out[1].value - 2.0 == pytest.approx(out[4].value - 1.0, rel=1e-12)
 

@@ -45,7 +45,7 @@ def lj_given(tmp_path_factory):
 def test_given_viscosity_reproduces_the_published_correction(lj_given):
     doc, text = lj_given
     kinds = [(x["method"], x["corrected"]) for x in doc["results"]]
-    assert kinds == [("msd_gls", None), ("msd_gls", "yeh_hummer")]
+    assert kinds == [("msd_wls", None), ("msd_wls", "yeh_hummer")]
     pbc, cor = doc["results"]
     d = cor["diagnostics"]
     box = d["box_lengths"][0]
@@ -116,7 +116,7 @@ def _docs(tmp_path: Path) -> tuple[Path, Path]:
     from transport.estimate import Estimate
     from transport.report.jsonout import build_document, write_json
 
-    d = Estimate("self_diffusion", "msd_gls", 0.0331, 0.0004, (0.0323, 0.0339), "reduced",
+    d = Estimate("self_diffusion", "msd_wls", 0.0331, 0.0004, (0.0323, 0.0339), "reduced",
                  group="all", diagnostics={"box_lengths": [11.757173] * 3,
                                            "box_volume": 11.757173**3,
                                            "length_unit": "sigma", "temperature": 0.722})

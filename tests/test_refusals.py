@@ -124,7 +124,7 @@ def test_vacf_yes_without_velocities_is_refused(tmp_path):
     _refused(["diffusion", str(top), str(traj), "--vacf", "yes"], "needs velocities",
              tmp_path)
     doc = _accepted(["diffusion", str(top), str(traj)])  # auto: a note, no VACF
-    assert [r["method"] for r in doc["results"]] == ["msd_gls"]
+    assert [r["method"] for r in doc["results"]] == ["msd_wls"]
     assert any("no velocities" in w for w in doc["warnings"]), doc["warnings"]
 
 

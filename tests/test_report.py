@@ -338,7 +338,7 @@ def test_bad_inputs_are_one_line_errors(tmp_path, documents):
 
 def _d_doc(path: Path, value: float, box: float, temperature: float = 298.0,
            group: str = "SOL") -> Path:
-    e = Estimate("self_diffusion", "msd_gls", value, 0.01, (value - 0.0196, value + 0.0196),
+    e = Estimate("self_diffusion", "msd_wls", value, 0.01, (value - 0.0196, value + 0.0196),
                  "1e-9 m^2/s", group=group,
                  diagnostics={"box_lengths": [box] * 3, "box_volume": box**3,
                               "length_unit": "nm", "temperature": temperature})

@@ -136,7 +136,7 @@ def _small_report(folder: Path) -> Path:
                 "running_integral_std": 0.05 + 0.02 * t, "acf_normalised": np.exp(-t / 1.5),
                 "sigma": 0.05 + 0.02 * t, "sigma_fit": 0.05 + 0.02 * t, "fit": run})
     d = Estimate(
-        "self_diffusion", "msd_gls", 2.1, 0.02, (2.06, 2.14), "1e-9 m^2/s", group="SOL",
+        "self_diffusion", "msd_wls", 2.1, 0.02, (2.06, 2.14), "1e-9 m^2/s", group="SOL",
         window=(2.0, 50.0), window_unit="ps", n_independent=216,
         diagnostics={"box_lengths": [3.0] * 3, "box_volume": 27.0, "length_unit": "nm",
                      "temperature": 298.0, "msd_unit": "nm^2"},

@@ -15,6 +15,12 @@ Run-length verdicts
     run_verdict, Verdict                               the pure judgement on given results
 Corrections (pure functions of results)
     correct_diffusion, extrapolate_box_size            finite-size correction of D
+Comparison of candidates (pure functions of results)
+    pool_replicas                                      replicas -> one estimate
+    Reference, deviation_from_reference -> Deviation   against experiment
+    pairwise_differences -> Difference, holm_adjust    z / Welch t tests, Holm
+    rank_candidates -> Ranking                         order and P(closest)
+    estimate_dof                                       dof of an error bar
 Errors
     InputError, RunTooShortError
 
@@ -35,6 +41,16 @@ __version__ = "0.1.0"
 _WHERE: dict[str, str] = {
     "Verdict": "convergence",
     "run_verdict": "convergence",
+    "Deviation": "compare",
+    "Difference": "compare",
+    "Ranking": "compare",
+    "Reference": "compare",
+    "deviation_from_reference": "compare",
+    "estimate_dof": "compare",
+    "holm_adjust": "compare",
+    "pairwise_differences": "compare",
+    "pool_replicas": "compare",
+    "rank_candidates": "compare",
     "correct_diffusion": "corrections",
     "extrapolate_box_size": "corrections",
     "DiffusionAnalysis": "diffusion",
@@ -65,10 +81,14 @@ _WHERE: dict[str, str] = {
 
 __all__ = [
     "UNIT_SYSTEMS",
+    "Deviation",
+    "Difference",
     "DiffusionAnalysis",
     "Estimate",
     "InputError",
     "PositionSeries",
+    "Ranking",
+    "Reference",
     "RunTooShortError",
     "Source",
     "StressSeries",
@@ -79,16 +99,22 @@ __all__ = [
     "analyse_diffusion",
     "analyse_viscosity",
     "correct_diffusion",
+    "deviation_from_reference",
     "diffusion_verdicts",
     "einstein",
+    "estimate_dof",
     "extrapolate_box_size",
     "get_unit_system",
     "green_kubo",
+    "holm_adjust",
     "load_stress",
     "load_stress_many",
     "load_trajectory",
     "mean_with_error",
     "msd_diffusion",
+    "pairwise_differences",
+    "pool_replicas",
+    "rank_candidates",
     "read_table",
     "run_verdict",
     "vacf_diffusion",
@@ -100,6 +126,18 @@ __getattr__, __dir__ = lazy_names(__name__, globals(), _WHERE, __all__)
 
 
 if TYPE_CHECKING:  # pragma: no cover - for type checkers and editors
+    from .compare import (
+        Deviation,
+        Difference,
+        Ranking,
+        Reference,
+        deviation_from_reference,
+        estimate_dof,
+        holm_adjust,
+        pairwise_differences,
+        pool_replicas,
+        rank_candidates,
+    )
     from .convergence import Verdict, run_verdict
     from .corrections import correct_diffusion, extrapolate_box_size
     from .diffusion import DiffusionAnalysis, analyse_diffusion, msd_diffusion, vacf_diffusion

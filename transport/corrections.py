@@ -413,7 +413,7 @@ def correct_diffusion(diffusion: Estimate, viscosity: Estimate | tuple[float, fl
 
 def correct_each(estimates: Sequence[Estimate], viscosity: Estimate | tuple[float, float], *,
                  temperature: float | None = None,
-                 methods: Sequence[str] = ("msd_gls",)) -> list[Estimate]:
+                 methods: Sequence[str] = ("msd_wls",)) -> list[Estimate]:
     """`estimates` with a corrected entry after each periodic-box D of the given methods.
 
     Parameters

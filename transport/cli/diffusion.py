@@ -129,8 +129,8 @@ def diffusion(ctx: click.Context, topology: str, trajectories: tuple[str, ...], 
               target: str | None, strict: bool, json_path: str | None,
               plot_path: str | None) -> None:
     """Self-diffusion from TOPOLOGY and TRAJECTORIES (several files = replicas, or parts of
-    one run with --continue), per species, with the MSD fitted by generalized least squares
-    and the VACF as a cross-check.
+    one run with --continue), per species, with the MSD fitted over its diffusive window,
+    the error bar from independent time blocks, and the VACF as a cross-check.
 
     With --target, a run-length verdict follows the results for each species."""
     run_diffusion(ctx, topology, trajectories, select=select, group_by=group_by,

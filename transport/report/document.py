@@ -255,7 +255,7 @@ def _pick_viscosity(rows: Sequence[Row]) -> Estimate | None:
 
 
 def _is_primary_d(e: Estimate) -> bool:
-    return e.quantity == "self_diffusion" and e.method == "msd_gls" and e.corrected is None
+    return e.quantity == "self_diffusion" and e.method == "msd_wls" and e.corrected is None
 
 
 def build_report(documents: Sequence[ResultDocument], *,

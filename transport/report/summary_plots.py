@@ -50,7 +50,7 @@ def diffusion_summary_figure(report: Report):
     seen: set = set()
     for r in rows:
         e = r.estimate
-        if e.method not in ("msd_gls", "box_size_extrapolation"):
+        if e.method not in ("msd_wls", "box_size_extrapolation"):
             continue
         k = (e.group or "all", r.source if e.method != "box_size_extrapolation"
              else "extrapolated")
@@ -154,7 +154,7 @@ def report_figures(report: Report, documents: Sequence[ResultDocument]) -> list[
                               "Helfand moment) with cutoffs, windows and error bands.",
                               figure_png(viscosity_figure(gk, ein))))
         msd = [e for e in with_curves if e.quantity == "self_diffusion"
-               and e.method == "msd_gls" and "msd" in e.curves]
+               and e.method == "msd_wls" and "msd" in e.curves]
         vacf = [e for e in with_curves if e.quantity == "self_diffusion"
                 and e.method == "vacf" and "vacf" in e.curves]
         if msd:
