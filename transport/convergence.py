@@ -358,10 +358,16 @@ def measure_scaling(
             # length), whose error says nothing about longer runs
             dropped += 1
             continue
+        if e.diagnostics.get("still_rising") and not estimate.diagnostics.get("still_rising"):
+            # a part whose running integral had not levelled off (a cutoff on the fast
+            # relaxation alone) is another regime too
+            dropped += 1
+            continue
         groups.setdefault(float(f), []).append(e)
     if not ok_full or not groups:
         why = ("no shorter part of the run was analysed" if not parts else
-               "the shorter parts hold fewer independent pieces (another regime)"
+               "the shorter parts are in another regime of the estimator (fewer pieces, or "
+               "a running integral still rising)"
                if dropped else "the shorter parts gave no error bar")
         return Scaling(0.5, "assumed", message=f"error assumed to fall as 1/sqrt(T), not "
                                                f"checked ({why})")

@@ -450,7 +450,10 @@ def _run_length_step(files: dict[str, list[Path]], echo: Callable[[str], None],
         echo(f"{m.label}, {sc.replicas} {what} of {each:.4g} {runs[0].units.time_unit} each:")
         echo(format_verdicts([v], details=False))
         echo(f"  {v.scaling.message}")
-        if frac < 1.0 and not v.long_enough and np.isfinite(v.relative_stderr):
+        only_precision = all(c.passed is not False for c in v.checks
+                             if c.blocking and c.name != "precision")
+        if frac < 1.0 and not v.long_enough and only_precision and \
+                np.isfinite(v.relative_stderr):
             gf = analyse_viscosity(full).green_kubo
             t_full = v.run_time / frac / sc.replicas
             pred = v.relative_stderr * (1.0 / frac) ** -v.scaling.exponent
