@@ -134,6 +134,19 @@ def test_still_rising_integral_is_not_long_enough_whatever_the_precision():
     assert "keeps rising" in v.main_reason
     names = {c.name: c for c in v.checks}
     assert names["levels_off"].passed is False and names["precision"].passed
+    assert v.additional_time is None  # no plateau: the error bar cannot be projected
+
+
+def test_extrapolated_plateau_asks_the_cutoff_to_reach_the_slow_decay():
+    # slow fitted decay 20 ps against an automatic cutoff of 5 ps on 400 ps of data: the
+    # cutoff grows about as the run, so 4x the run (1200 ps more) is asked for
+    d = {"pieces": 20, "cutoff": 5.0, "still_rising": False, "decorrelation_time": 0.5,
+         "skipped": [0.0], "cutoff_rule": "replica spread reaches 0.4 of the mean",
+         "fit_params": {"A": 1.0, "alpha": 0.5, "tau1": 0.1, "tau2": 20.0}}
+    v = run_verdict(_est(3.0, 0.03, window=(0.0, 5.0), diagnostics=d), target=0.05,
+                    run_times=[400.0])
+    assert not v.long_enough and "extrapolation" in v.main_reason
+    assert v.additional_time == pytest.approx(1200.0, rel=1e-12)
 
 
 def test_unresolved_slow_relaxation_is_a_caution():

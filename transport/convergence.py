@@ -504,7 +504,7 @@ def _viscosity_checks(e: Estimate, run_times: Sequence[float]) -> list[Check]:
                          # pieces grow in proportion to the time below the target count
                          None if ok else total * MIN_PIECES / float(n)))
     if e.method == "green_kubo":
-        out.append(_levels_off_check(e))
+        out.append(_levels_off_check(e, total))
     elif e.method == "einstein" and e.window is not None and isinstance(t_dec, (int, float)):
         ok = e.window[0] >= t_dec
         out.append(Check("fit_after_decorrelation", ok, False,
@@ -515,7 +515,7 @@ def _viscosity_checks(e: Estimate, run_times: Sequence[float]) -> list[Check]:
     return out
 
 
-def _levels_off_check(e: Estimate) -> Check:
+def _levels_off_check(e: Estimate, total: float | None = None) -> Check:
     d, u = e.diagnostics, e.window_unit
     cutoff = d.get("cutoff", e.window[1] if e.window else None)
     rising = d.get("still_rising")
@@ -535,9 +535,13 @@ def _levels_off_check(e: Estimate) -> Check:
                      "within the pieces (the viscosity is probably too small)",
                      float(cutoff), None)
     if slow is not None and slow > cutoff:
+        # the automatic cutoff grows about in proportion to the run (measured T^0.6-1.1):
+        # the run must grow by slow / cutoff for the cutoff to reach the slow decay
+        auto = d.get("cutoff_rule") not in (None, "given")
         return Check("levels_off", False, True,
                      f"the fitted slow decay time ({_f(slow)} {u}) exceeds the {where}: the "
-                     "plateau is an extrapolation", float(cutoff), slow)
+                     "plateau is an extrapolation", float(cutoff), slow,
+                     total * slow / cutoff if auto and total and cutoff > 0 else None)
     rule = str(d.get("cutoff_rule", ""))
     if rule.startswith("maximum lag"):
         return Check("levels_off", True, False,
@@ -726,7 +730,12 @@ def run_verdict(
 
     add_t: float | None = None
     add_r: int | None = None
-    if math.isfinite(r) and r > 0:
+    # without a plateau (or a diffusive regime) the error bar says nothing about the run
+    # needed: only a length rule of the failed check can give the additional time
+    unsound = any(c.name in ("levels_off", "diffusive_regime") for c in blocking)
+    if unsound:
+        add_t, add_r = 0.0, 0
+    elif math.isfinite(r) and r > 0:
         if r <= target:
             add_t, add_r = 0.0, 0
         elif not (scaling.rule == "measured" and scaling.measured is not None
@@ -739,6 +748,8 @@ def run_verdict(
     if need and add_t is not None:
         add_t = max(add_t, (max(need) - total) / reps)
         add_r = max(add_r or 0, int(math.ceil((max(need) - total) / mean_len - 1e-9)))
+    if unsound and not need:
+        add_t = add_r = None  # not projectable: the reasons say what to fix first
     hours = hours_r = None
     if seconds_per_time is not None and seconds_per_time > 0 and add_t is not None:
         hours = add_t * reps * seconds_per_time / 3600.0
@@ -746,7 +757,14 @@ def run_verdict(
 
     u = estimate.window_unit
     reasons = [c.message for c in blocking]
-    if precision.passed:
+    if unsound:
+        reasons.append(precision.message + (
+            f"; the estimate rests on no plateau or diffusive regime, so the precision "
+            f"says nothing yet; the failed checks ask for about {_f(add_t)} {u} more per run"
+            if add_t else "; the estimate rests on no plateau or diffusive regime, so the "
+            "precision says nothing yet and no length can be projected: run longer and "
+            "check again"))
+    elif precision.passed:
         reasons.append(precision.message + (
             f"; the failed checks ask for about {_f(add_t)} {u} more per run"
             if blocking and add_t else ""))
