@@ -98,7 +98,7 @@ from .._parallel import available_cpus, lane_map
 from ..errors import InputError
 from ..series import PositionSeries, Source
 from ..units import UnitSystem, get_unit_system
-from ._dcd import _bulk_dcd
+from ._dcd import _bulk_dcd, _lammps_dcd
 from ._frames import (
     _c_stderr_held,
     _fork_split,
@@ -1164,7 +1164,15 @@ def _factors(dump: _DumpInfo | None, unit_sys: UnitSystem | None, reduced: bool,
                 fix="pass --units (real, metal, lj, si, ...)",
             )
         return unit_sys.length, unit_sys.length / unit_sys.time
+    if unit_sys is not None and _is_dcd(path) and _lammps_dcd(path) is not None:
+        # LAMMPS writes DCD coordinates in the run's own length unit (Angstrom for real
+        # and metal, m for si, nm for nano, ...); MDAnalysis leaves DCD numbers as they are
+        return unit_sys.length, unit_sys.length / unit_sys.time
     return _ANGSTROM, _ANGSTROM / _PS
+
+
+def _is_dcd(path: Path) -> bool:
+    return path.suffix.lower() == ".dcd"
 
 
 @dataclass(frozen=True)
@@ -1204,6 +1212,30 @@ def _frame_clock(u: Any, dump: _DumpInfo | None, unit_sys: UnitSystem | None, re
             path=str(path), expected="step numbers (dump, XTC, TRR, DCD)",
             fix="give the time between frames with --frame-interval instead",
         )
+    lammps = (_lammps_dcd(path) if type(u.trajectory).__name__.startswith("DCD")
+              else None)
+    if lammps is not None:
+        # LAMMPS writes its time step in the run's own unit, not in the AKMA unit every DCD
+        # reader assumes (frames 48.9x too far apart for `units real`): the header's step
+        # is used only in the unit the user names
+        if unit_sys is None:
+            raise InputError(
+                f"DCD written by LAMMPS: its header time step ({lammps.delta:.6g} per step, "
+                f"{lammps.nsavc} steps between frames) is in the run's LAMMPS units, which "
+                "the file does not state, and would be read as CHARMM time units",
+                path=str(path), expected="the run's units style",
+                fix="pass --units (the run's LAMMPS units style, e.g. real) or --timestep",
+            )
+        if not (lammps.delta > 0 and math.isfinite(lammps.delta)):
+            raise InputError(
+                f"DCD written by LAMMPS with header time step {lammps.delta!r}",
+                path=str(path), expected="a positive time step in the header",
+                fix="pass --timestep (the integration time step)",
+            )
+        return _Clock("dcd_step", lammps.delta * tunit, float(lammps.istart),
+                      float(lammps.nsavc),
+                      f"step numbers x the LAMMPS header time step ({lammps.delta:.6g} "
+                      f"{unit_sys.time_label or unit_sys.name})")
     if reduced or dump is not None:
         raise InputError(
             "the time between frames is not known" + (

@@ -1,0 +1,70 @@
+"""Readers refuse what would silently give wrong numbers (issue 11): DCD files written by
+LAMMPS, whose header time step is in the run's own unit.
+
+Sources: the engine's own DCD files in tests/data (LAMMPS 22 Jul 2025, see their README:
+hexane every 500 steps of 2 fs, LJ every 50 steps of 0.005 tau) and MDAnalysisTests'
+``ifabp_apo_100mM.dcd`` (header remark "Written by LAMMPS", time step 2.0, 250 steps between
+frames; MDAnalysis reads its frame interval as 24.444 ps, i.e. 500 x 48.888 fs, the AKMA
+time unit of CHARMM, 48.88821 fs: common practice, CHARMM documentation, from memory).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from transport.errors import InputError
+from transport.io._dcd import _lammps_dcd
+from transport.io.trajectory import load_trajectory
+
+DATA = Path(__file__).parent / "data"
+HEX_TOP, HEX_DCD = DATA / "alkane" / "hexane.data", DATA / "alkane" / "hexane_wrapped.dcd"
+LJ_TOP, LJ_DCD = DATA / "lj_diffusion" / "lj.data", DATA / "lj_diffusion" / "lj_diff.dcd"
+
+mdtests = pytest.importorskip("MDAnalysisTests.datafiles")
+
+
+def test_lammps_header_is_recognised():
+    assert _lammps_dcd(HEX_DCD) is not None
+    h = _lammps_dcd(HEX_DCD)
+    # make_alkane.py: `dump ... dcd 500` with `timestep 2.0` (fs) from step 0
+    assert (h.delta, h.istart, h.nsavc) == (2.0, 0, 500)
+    assert _lammps_dcd(Path(mdtests.LAMMPSdcd2)).nsavc == 250
+    # a CHARMM DCD (adenylate kinase, MDAnalysisTests) is not taken for a LAMMPS one
+    assert _lammps_dcd(Path(mdtests.DCD)) is None
+
+
+@pytest.mark.parametrize("top,dcd", [(HEX_TOP, HEX_DCD), (LJ_TOP, LJ_DCD),
+                                     ("LAMMPSdata2", "LAMMPSdcd2")])
+def test_lammps_dcd_without_units_or_timestep_is_refused(top, dcd, tmp_path):
+    if isinstance(top, str):
+        top, dcd = getattr(mdtests, top), getattr(mdtests, dcd)
+    before = sorted(p.name for p in Path(dcd).parent.iterdir())
+    with pytest.raises(InputError) as exc:
+        load_trajectory(top, dcd)
+    msg = str(exc.value)
+    assert "\n" not in msg
+    for word in ("written by LAMMPS", "time step", "--units", "--timestep", str(dcd)):
+        assert word in msg
+    assert sorted(p.name for p in Path(dcd).parent.iterdir()) == before  # nothing written
+
+
+def test_units_take_the_header_step_in_the_engine_unit():
+    # hexane: 500 steps x 2 fs = 1 ps between frames (README), not 500 x 2 x 48.888 fs
+    s = load_trajectory(HEX_TOP, HEX_DCD, units="real", group_by="atom")[0]
+    assert s.dt == pytest.approx(1e-12, rel=1e-12)  # 2.0 is exact in float32
+    given = load_trajectory(HEX_TOP, HEX_DCD, units="real", timestep=2.0, group_by="atom")[0]
+    assert s.dt == given.dt and s.t0 == given.t0
+    np.testing.assert_array_equal(s.positions, given.positions)
+    # MDAnalysisTests' LAMMPS DCD: 250 steps x 2 fs = 0.5 ps (MDAnalysis says 24.444 ps)
+    m = load_trajectory(mdtests.LAMMPSdata2, mdtests.LAMMPSdcd2, units="real")[0]
+    assert m.dt == pytest.approx(0.5e-12, rel=1e-12)
+
+
+def test_reduced_units_take_the_header_step():
+    # LJ: 50 steps x 0.005 tau = 0.25 tau; the header stores 0.005 as float32 (rel 2e-8)
+    s = load_trajectory(LJ_TOP, LJ_DCD, units="lj")[0]
+    assert s.dt == pytest.approx(0.25, rel=1e-7)
+    assert s.n_frames == 401
