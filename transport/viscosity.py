@@ -42,6 +42,7 @@ import numpy as np
 from scipy import optimize, stats
 
 from ._parallel import thread_map
+from .checks import check_viscosity_result, stress_sampling
 from .errors import InputError, RunTooShortError
 from .estimate import Estimate
 from .series import StressSeries
@@ -719,6 +720,7 @@ def analyse_viscosity(
     prep = _prepare(slist, components=components, skip=skip, max_lag=max_lag,
                     n_pieces=n_pieces)
     common_warn = tuple(w for s in slist for w in s.warnings) + prep.notes
+    common_warn += stress_sampling(prep, slist, weights)  # refuses a too coarse sampling
     for s in slist:
         if s.temperature_source and "mean" in s.temperature_source:
             common_warn += (
@@ -730,7 +732,7 @@ def analyse_viscosity(
         gk = _green_kubo(prep, slist, weights, cutoff, sigma_fraction, components, common_warn)
     if method in ("einstein", "both"):
         ei = _einstein(prep, slist, weights, fit_window, components, common_warn)
-    return ViscosityAnalysis(gk, ei)
+    return check_viscosity_result(ViscosityAnalysis(gk, ei), slist)  # no interval <= 0
 
 
 def _common_diag(prep: _Prepared, slist: list[StressSeries], components: str) -> dict:

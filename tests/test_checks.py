@@ -1,0 +1,115 @@
+"""The checks of transport/checks.py on real data (issue 11: no silent wrong numbers).
+
+Data: the LJ viscosity logs and the n-hexane log of tests/data (LAMMPS, see their READMEs).
+Thinning a finely sampled real log to every k-th row gives the same run sampled coarsely,
+with the finely sampled result as the truth it should reproduce.
+"""
+
+from __future__ import annotations
+
+from dataclasses import replace
+from pathlib import Path
+from types import SimpleNamespace
+
+import numpy as np
+import pytest
+
+from transport.checks import (
+    STRESS_MIN_FIRST,
+    STRESS_WARN_FIRST,
+    check_viscosity_result,
+    stress_first_lag,
+)
+from transport.errors import InputError, RunTooShortError
+from transport.estimate import Estimate
+from transport.io import load_stress
+from transport.viscosity import _WEIGHTS_ALL, analyse_viscosity
+
+DATA = Path(__file__).parent / "data"
+LJ = DATA / "lj_viscosity" / "lj_visc_rep1.log.gz"
+HEXANE = DATA / "alkane" / "hexane.log.xz"
+
+
+@pytest.fixture(scope="module")
+def lj():
+    # T* = 0.722 is the set point of the NVE replicas (README: mean 0.7248 for rep1)
+    return load_stress(LJ, units="lj", temperature=0.722)
+
+
+def _thinned(s, k):
+    return replace(s, pressure=np.ascontiguousarray(s.pressure[:, ::k]), dt=s.dt * k)
+
+
+def test_first_lag_correlation_of_the_thinned_lj_log(lj):
+    # measured once with the same formula (plain numpy): 0.929 at 0.02 tau; thinning
+    # by k multiplies the lag by k, so rho(1) must fall steeply (0.37 at k=5, 0.053 at
+    # k=25); the brackets are the measured values +-0.05 (this run's own noise is ~0.01)
+    r = [stress_first_lag([[row[::k] for row in lj.pressure]], _WEIGHTS_ALL)
+         for k in (1, 5, 25)]
+    assert 0.88 < r[0] < 0.98
+    assert 0.32 < r[1] < 0.42 and STRESS_MIN_FIRST < r[1] < STRESS_WARN_FIRST
+    assert 0.0 < r[2] < 0.1 < STRESS_MIN_FIRST
+
+
+def test_coarse_stress_is_refused_with_the_interval_to_use(lj):
+    # every 25th row: 0.5 tau between samples; Green–Kubo would be 6.8 where the
+    # finely sampled run gives 3.2 (measured on the 4 replicas, see STRESS_MIN_FIRST)
+    with pytest.raises(InputError) as exc:
+        analyse_viscosity(_thinned(lj, 25), method="both")
+    msg = str(exc.value)
+    for word in ("sampled too coarsely", "0.5 tau", "fix: write the pressure tensor at "
+                 "least every", str(LJ)):
+        assert word in msg
+    assert not isinstance(exc.value, RunTooShortError)
+
+
+def test_coarse_but_usable_stress_gives_a_warning(lj):
+    est = analyse_viscosity(_thinned(lj, 5)).green_kubo
+    assert any("sampled coarsely" in w for w in est.warnings)
+    fine = analyse_viscosity(lj).green_kubo
+    assert not any("sampled coarsely" in w for w in fine.warnings)
+
+
+def test_an_interval_reaching_zero_is_run_too_short():
+    # the first 60 ps of the n-hexane production (issue 11: "2.1 +- 261 mPa s" from a
+    # 60 ps log): the 95% interval includes negative viscosities
+    s = load_stress(HEXANE, units="real", temperature=298.0).sliced(0, 15000)
+    with pytest.raises(RunTooShortError) as exc:
+        analyse_viscosity(s, method="both")
+    err = exc.value
+    assert isinstance(err.partial, Estimate)
+    assert err.partial.interval[0] <= 0 < err.partial.interval[1]
+    assert err.extra_time > 0 and err.time_unit == "ps"
+    for word in ("95% interval", "negative viscosities", "60 ps", "extend the run by"):
+        assert word in str(err)
+
+
+def _estimate(value, stderr):
+    return Estimate("shear_viscosity", "green_kubo", value, stderr,
+                    (value - 2 * stderr, value + 2 * stderr), "mPa s")
+
+
+class _Analysis:
+    def __init__(self, *est):
+        self.estimates = est
+
+
+def _series():
+    from transport.units import get_unit_system
+
+    return SimpleNamespace(units=get_unit_system("real"), duration=1e-10,  # 100 ps
+                           source=SimpleNamespace(path="run.log"))
+
+
+def test_projection_follows_one_over_square_root_of_the_length():
+    ok = _Analysis(_estimate(1.0, 0.1))
+    assert check_viscosity_result(ok, [_series()]) is ok
+    # value 1, stderr 1, quantile 2: the interval +-50% needs (2 * 2 * 1 / 1)^2 = 16x
+    # the 100 ps run (the error bar falls as 1/sqrt(length))
+    with pytest.raises(RunTooShortError) as exc:
+        check_viscosity_result(_Analysis(_estimate(1.0, 1.0)), [_series()])
+    assert exc.value.needed_time == pytest.approx(1600.0)
+    assert exc.value.extra_time == pytest.approx(1500.0)
+    with pytest.raises(RunTooShortError) as exc:
+        check_viscosity_result(_Analysis(_estimate(-0.5, 1.0)), [_series()])
+    assert exc.value.extra_time is None and "not positive" in str(exc.value)
