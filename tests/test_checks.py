@@ -113,3 +113,21 @@ def test_projection_follows_one_over_square_root_of_the_length():
     with pytest.raises(RunTooShortError) as exc:
         check_viscosity_result(_Analysis(_estimate(-0.5, 1.0)), [_series()])
     assert exc.value.extra_time is None and "not positive" in str(exc.value)
+
+
+def test_a_temperature_in_other_units_than_the_file_is_refused():
+    # issue 11: --temperature 300 on a reduced-units log whose column averages 0.725
+    # (README: mean T* of rep1 0.7248) made the viscosity 400x too small
+    with pytest.raises(InputError) as exc:
+        load_stress(LJ, units="lj", temperature=300.0)
+    msg = str(exc.value)
+    for word in ("--temperature 300", "'Temp'", "0.72", "fix: pass the run's set point"):
+        assert word in msg, word
+    # 1e30 and a value 10% off the mean are refused too; 2% off passes (the tolerance
+    # is 5% plus 3 standard errors of the column's mean)
+    with pytest.raises(InputError, match="not a plausible temperature"):
+        load_stress(LJ, units="lj", temperature=1e30)
+    with pytest.raises(InputError, match="differs from the mean"):
+        load_stress(LJ, units="lj", temperature=0.7248 * 1.1)
+    assert load_stress(LJ, units="lj", temperature=0.7248 * 1.02).temperature == \
+        pytest.approx(0.7248 * 1.02)

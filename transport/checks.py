@@ -264,3 +264,63 @@ def pressure_outlier(pressure: np.ndarray) -> tuple[int, int, float, bool] | Non
             isolated = row > 0 and int(np.sum(np.abs(near - med) > OUTLIER_MAD * scale)) == 1
             worst = (c, row, far, isolated)
     return worst
+
+
+#: Largest temperature accepted (K): above it no liquid exists (the hottest molten
+#: materials simulated are a few 10^4 K); a larger number is a typo or another unit.
+MAX_TEMPERATURE_K = 1e5
+#: Largest reduced (Lennard-Jones) temperature accepted: the LJ fluid's critical point is
+#: T* = 1.3 (common practice); T* = 1000 is far into the dilute gas.
+MAX_TEMPERATURE_REDUCED = 1e3
+#: A given temperature may differ from the mean of the file's temperature column by this
+#: fraction beyond three standard errors of that mean (thermostats hold the mean kinetic
+#: temperature within a percent or so; engines count degrees of freedom differently, which
+#: shifts the printed temperature by 3/N to a few percent).
+TEMPERATURE_TOLERANCE = 0.05
+
+
+def temperature_plausible(value: float, *, reduced: bool, option: str = "--temperature",
+                          path: str | None = None) -> None:
+    """InputError unless `value` is a finite temperature in (0, MAX] (K or reduced)."""
+    top = MAX_TEMPERATURE_REDUCED if reduced else MAX_TEMPERATURE_K
+    unit = "reduced (lj)" if reduced else "K"
+    if not (math.isfinite(value) and 0 < value <= top):
+        raise InputError(
+            f"{option} {value:g} is not a plausible temperature", path=path,
+            expected=f"a positive temperature of at most {top:g} {unit}",
+            fix=f"pass the thermostat set point in {unit}")
+
+
+def _mean_and_stderr(x: np.ndarray) -> tuple[float, float]:
+    """Mean and a correlation-aware standard error from 20 block means (0 if too few)."""
+    x = np.asarray(x, dtype=np.float64)
+    n = x.shape[0]
+    mean = float(np.mean(x))
+    nb = 20
+    if n < 2 * nb:
+        return mean, float(np.std(x, ddof=1) / math.sqrt(n)) if n > 1 else 0.0
+    blocks = x[: (n // nb) * nb].reshape(nb, -1).mean(axis=1)
+    return mean, float(blocks.std(ddof=1) / math.sqrt(nb))
+
+
+def temperature_against_column(given: float, column: np.ndarray, *, name: str,
+                               reduced: bool, path: str | None = None,
+                               line: int | None = None) -> None:
+    """Compare a given temperature with the file's temperature column.
+
+    A mismatch beyond three standard errors of the column's mean plus
+    :data:`TEMPERATURE_TOLERANCE` of it is an InputError naming both values (a set point
+    in other units, or for another run): the viscosity is proportional to 1/T, so a wrong
+    temperature is a silent factor. Returns a note with both values otherwise.
+    """
+    temperature_plausible(given, reduced=reduced, path=path)
+    mean, se = _mean_and_stderr(column)
+    unit = " (reduced)" if reduced else " K"
+    if abs(given - mean) > 3.0 * se + TEMPERATURE_TOLERANCE * abs(mean):
+        raise InputError(
+            f"--temperature {given:g}{unit} differs from the mean of the file's temperature "
+            f"column '{name}' ({mean:.4g} +- {se:.2g}{unit}) by more than "
+            f"{TEMPERATURE_TOLERANCE:.0%} and its error",
+            path=path, line=line, expected="the set point of the run in this file",
+            fix=f"pass the run's set point in the file's units (the column says {mean:.4g}), "
+                "or leave out --temperature to use the column's mean")

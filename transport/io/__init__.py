@@ -492,11 +492,10 @@ def load_stress(
     """
     from ._stress import stress_from_table
 
-    # A given temperature makes the file's temperature column unnecessary: not converted.
-    want = _STRESS_WANT if temperature is None else tuple(
-        c for c in _STRESS_WANT if c != "temperature")
+    # The temperature column is read also when a temperature is given: the two are
+    # compared (a set point in other units is refused, see transport.checks)
     table = _read(path, run=run, units=units, timestep=timestep, progress=progress,
-                  want=want)
+                  want=_STRESS_WANT)
     return stress_from_table(table, temperature=temperature, volume=volume, _consume=True)
 
 

@@ -7,6 +7,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from ..checks import temperature_against_column, temperature_plausible
 from ..errors import InputError
 from ..series import StressSeries
 from ._assemble import user_number
@@ -265,6 +266,12 @@ def stress_from_table(
             raise InputError(f"--temperature {temperature!r} is not a positive number",
                              path=spath, expected="the thermostat set point (K, or reduced)",
                              fix="pass a positive --temperature")
+        temperature_plausible(temp, reduced=units.reduced, path=spath)
+        if "temperature" in canon:
+            name = canon["temperature"]
+            _check_values(cols[name], table, [name], spath)
+            temperature_against_column(temp, cols[name], name=name, reduced=units.reduced,
+                                       path=spath, line=header_line)
         temp_how = "set point given by the user"
     elif "temperature" in canon:
         name = canon["temperature"]

@@ -1776,6 +1776,12 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
         if temp is not None:
             temp_src = ("mean kinetic temperature from the velocities (3N - 3 degrees of "
                         "freedom)")
+            # the topology formats read here do not say which bonds were constrained
+            warn.append(
+                f"temperature {temp:.4g} {'(reduced)' if reduced else 'K'} from the "
+                f"velocities assumes no constraints (3N - 3 = {3 * n_atoms - 3} degrees of "
+                "freedom); with constrained bonds it is too low (rigid 3-site water: by "
+                "a third): pass --temperature with the set point")
     t_unit = "tau" if reduced else "s"
     label = proc.scheme_label()
     sources = tuple(
