@@ -266,7 +266,7 @@ def sniff_format(path: str | os.PathLike[str]) -> tuple[str, str | None]:
 # The tensor first, in its order: the reader stores kept columns as rows of one array in
 # this order, so that the six components can become the (6, n) pressure array in place.
 _STRESS_WANT = (*TENSOR_ORDER, *(c for c in PRESSURE_COMPONENTS if c not in TENSOR_ORDER),
-                "step", "time", "volume", "lx", "ly", "lz", "temperature")
+                "step", "time", "volume", "lx", "ly", "lz", "temperature", "press")
 
 
 def _read(

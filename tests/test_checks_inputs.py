@@ -1,0 +1,95 @@
+"""Damaged and awkward variants of the real logs in tests/data, made inside the tests
+(issue 11): each gives an error or a warning that names the problem and the fix.
+
+Source file: tests/data/lammps_logs/argon_real_tworuns.log (LAMMPS, `units real`, two
+consecutive runs of 201 rows each printing step temp press pxx pyy pzz pxy pxz pyz vol
+etotal; see its README). The engine prints press = (pxx + pyy + pzz)/3 from the same
+virial, so the unmodified file agrees to 1e-8 (measured).
+"""
+
+from __future__ import annotations
+
+import hashlib
+from pathlib import Path
+
+import pytest
+
+from transport.errors import InputError
+from transport.io import load_stress
+
+LOG = Path(__file__).parent / "data" / "lammps_logs" / "argon_real_tworuns.log"
+HEADERS = (45, 276)  # 1-based lines of the two thermo headers (checked below)
+
+
+def _lines() -> list[str]:
+    lines = LOG.read_text().splitlines(keepends=True)
+    for h in HEADERS:
+        assert lines[h - 1].split()[:3] == ["Step", "Temp", "Press"]
+    return lines
+
+
+def _edit(lines: list[str], line: int, col: str, fn) -> None:
+    """Apply fn to the token of column `col` on 1-based `line` (header of its run above)."""
+    head = max(h for h in HEADERS if h < line)
+    k = lines[head - 1].split().index(col)
+    toks = lines[line - 1].split()
+    toks[k] = fn(toks[k])
+    lines[line - 1] = "   " + "   ".join(toks) + "\n"
+
+
+def _write(tmp_path: Path, lines: list[str], name: str = "argon.log") -> Path:
+    p = tmp_path / name
+    p.write_text("".join(lines))
+    return p
+
+
+def _digest(p: Path) -> str:
+    return hashlib.sha256(p.read_bytes()).hexdigest()
+
+
+def test_the_real_log_reads_without_these_warnings():
+    s = load_stress(LOG, temperature=96.3)
+    assert not any("robust" in w or "disagree" in w or "left out" in w for w in s.warnings)
+
+
+def test_one_absurd_cell_is_refused_with_its_line(tmp_path):
+    # issue 11: one cell of 1e12 gave a viscosity of 2.4e20 +- 2.4e20 without a warning
+    lines = _lines()
+    _edit(lines, 400, "Pxy", lambda t: "1e12")
+    p = _write(tmp_path, lines)
+    before = _digest(p)
+    with pytest.raises(InputError) as exc:
+        load_stress(p, temperature=96.3)
+    msg = str(exc.value)
+    for word in (f"{p}:400:", "'Pxy'", "1e+12", "robust standard deviations",
+                 "damaged value", "fix: repair or remove"):
+        assert word in msg, word
+    assert _digest(p) == before  # the input is not touched
+
+
+def test_a_scaled_component_disagrees_with_the_pressure_column(tmp_path):
+    # a whole component x1e12 keeps its shape (no outlier), but its diagonal no longer
+    # adds up to the engine's own pressure column
+    lines = _lines()
+    for ln in range(277, 478):
+        _edit(lines, ln, "Pyy", lambda t: f"{float(t) * 1e12:.8g}")
+    for ln in range(46, 247):
+        _edit(lines, ln, "Pyy", lambda t: f"{float(t) * 1e12:.8g}")
+    s = load_stress(_write(tmp_path, lines), temperature=96.3)
+    hit = [w for w in s.warnings if "disagree with the pressure column 'Press'" in w]
+    assert len(hit) == 1 and "Pxx, Pyy, Pzz" in hit[0]
+
+
+def test_a_later_run_with_fewer_components_is_named_with_its_size(tmp_path):
+    # issue 11: the later run printed fewer components and was dropped without a word
+    lines = _lines()
+    for ln in range(276, 478):
+        toks = lines[ln - 1].split()
+        del toks[7:9]  # Pxz, Pyz
+        lines[ln - 1] = "   " + "   ".join(toks) + "\n"
+    s = load_stress(_write(tmp_path, lines), temperature=96.3)
+    assert s.n == 201  # the first run alone
+    hit = [w for w in s.warnings if "later thermo run 2" in w]
+    assert len(hit) == 1
+    for word in ("only 4 of the 6", "201 rows", "step 2000-4000", "left out", "--run"):
+        assert word in hit[0], word
