@@ -68,3 +68,37 @@ def test_reduced_units_take_the_header_step():
     s = load_trajectory(LJ_TOP, LJ_DCD, units="lj")[0]
     assert s.dt == pytest.approx(0.25, rel=1e-7)
     assert s.n_frames == 401
+
+
+def _cut_dcd(tmp_path: Path, frames: int) -> Path:
+    """The first `frames` frames of the engine's LJ DCD (header + whole frame records)."""
+    from transport.io._dcd import _dcd_layout
+
+    lay = _dcd_layout(LJ_DCD)
+    p = tmp_path / f"first{frames}.dcd"
+    p.write_bytes(LJ_DCD.read_bytes()[: lay.header + frames * lay.frame_bytes])
+    return p
+
+
+@pytest.mark.parametrize("frames", [1, 2])
+def test_one_or_two_frames_are_refused_naming_the_count(tmp_path, frames):
+    # issue 11: one frame was reported as "0 frame(s)", two ended in an internal error
+    with pytest.raises(InputError) as exc:
+        load_trajectory(LJ_TOP, _cut_dcd(tmp_path, frames), units="lj")
+    assert f"has {frames} frame(s)" in str(exc.value)
+    assert "at least 3 frames" in str(exc.value)
+
+
+def test_a_fit_from_two_points_is_run_too_short(tmp_path):
+    # issue 11: a 10-frame trajectory gave D from 2 fit points (0 dof) as a result
+    from transport.diffusion import analyse_diffusion
+    from transport.errors import RunTooShortError
+
+    s = load_trajectory(LJ_TOP, _cut_dcd(tmp_path, 10), units="lj")[0]
+    with pytest.raises(RunTooShortError) as exc:
+        analyse_diffusion(s)
+    err = exc.value
+    assert err.partial is not None and err.partial.diagnostics["fit_points"] == 2
+    assert err.extra_time > 0 and err.time_unit == "tau"
+    for word in ("only 2 fit point(s)", "0 degrees of freedom", "extend the run by"):
+        assert word in str(err)

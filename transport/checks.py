@@ -361,3 +361,44 @@ def pressure_column_mismatch(pressure: np.ndarray, press: np.ndarray, *,
     size = float(np.mean([np.median(np.abs(pressure[c, ::step])) for c in range(3)]))
     rel = float(np.median(r[::step])) / size if size > 0 else 0.0
     return rel, int(np.argmax(r))
+
+
+#: Fewest MSD points in a diffusion fit: 5 points leave 3 degrees of freedom, the fewest
+#: for which the chi-square of the fit against its covariance model means anything (with
+#: 0 dof, as a 10-frame trajectory gave, the line passes through both points exactly).
+MIN_FIT_POINTS = 5
+
+
+def check_diffusion_result(analysis: Any, slist: Sequence[Any]) -> Any:
+    """Refuse MSD diffusion estimates from too few fit points or with an interval <= 0.
+
+    Raises :class:`~transport.errors.RunTooShortError` with the estimate as ``partial``
+    and the run length at which the fit window (which ends at a quarter of the run) holds
+    :data:`MIN_FIT_POINTS` points; returns `analysis` unchanged otherwise.
+    """
+    for est in getattr(analysis, "msd", ()):
+        npts = int(est.diagnostics.get("fit_points", MIN_FIT_POINTS))
+        bad_points = npts < MIN_FIT_POINTS
+        if not bad_points and est.interval[0] > 0 and est.value > 0:
+            continue
+        members = [s for s in slist if est.group in getattr(s, "species_names", ())] or \
+            list(slist)
+        u = members[0].units
+        ts = u.time_scale
+        dt = members[0].dt * ts
+        have = max(s.duration for s in members) * ts
+        start = est.window[0] if est.window is not None else dt
+        # points are spaced by half the window start (at least one frame); the window
+        # ends at a quarter of the run
+        spacing = max(dt, 0.5 * start)
+        need = 4.0 * (start + (MIN_FIT_POINTS - 1) * spacing)
+        what = (f"only {npts} fit point(s) ({npts - 2} degrees of freedom; at least "
+                f"{MIN_FIT_POINTS} are needed)" if bad_points else
+                f"its 95% interval [{est.interval[0]:.3g}, {est.interval[1]:.3g}] includes "
+                "zero or negative values")
+        raise RunTooShortError(
+            f"{est.group or 'all'}: self-diffusion {est.value:.4g} {est.unit} rests on "
+            f"{what}; the run ({have:.3g} {u.time_unit}) is too short for the fit",
+            partial=est, needed_time=need, extra_time=max(need - have, 0.0),
+            time_unit=u.time_unit, path=members[-1].source.path or None)
+    return analysis

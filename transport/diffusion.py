@@ -94,6 +94,7 @@ import numpy as np
 import scipy.fft as sfft
 from scipy import special
 
+from .checks import check_diffusion_result
 from .errors import InputError, RunTooShortError
 from .estimate import Estimate
 from .msd_fit import (
@@ -472,7 +473,8 @@ def analyse_diffusion(
                     vacf_est.append(est)
                 if note:
                     notes.append(note)
-    return DiffusionAnalysis(tuple(msd_est), tuple(vacf_est), tuple(dict.fromkeys(notes)))
+    return check_diffusion_result(  # too few fit points or an interval <= 0: refused
+        DiffusionAnalysis(tuple(msd_est), tuple(vacf_est), tuple(dict.fromkeys(notes))), slist)
 
 
 def _msd_estimate(slist: list[PositionSeries], name: str,

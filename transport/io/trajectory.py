@@ -1449,9 +1449,13 @@ class _Collector:
         return ang if np.any(np.abs(ang - 90.0) > 1e-3) else None
 
     def finish(self) -> dict[str, Any]:
-        if self.n_seen < 2 or self.store_p is None or self.dt is None:
-            raise InputError(f"the trajectory has {self.n_seen} frame(s)", path=self.path,
-                             expected="at least 2 frames", fix="give a longer trajectory")
+        # three frames at least: a mean-squared displacement needs two lags to fit
+        if self.n_seen - self.k_skip < 3 or self.store_p is None or self.dt is None:
+            given = max(self.frames_given, self.n_seen)
+            kept = f" ({given - self.k_skip} after --skip)" if self.k_skip else ""
+            raise InputError(f"the trajectory has {given} frame(s){kept}", path=self.path,
+                             expected="at least 3 frames (far more for a diffusion "
+                             "coefficient)", fix="give a longer trajectory")
         n = self.n_seen - self.k_skip
         pos = self.store_p.finish(n)
         vel = None if self.store_v is None else self.store_v.finish(n)
