@@ -131,3 +131,21 @@ def test_a_temperature_in_other_units_than_the_file_is_refused():
         load_stress(LJ, units="lj", temperature=0.7248 * 1.1)
     assert load_stress(LJ, units="lj", temperature=0.7248 * 1.02).temperature == \
         pytest.approx(0.7248 * 1.02)
+
+
+def test_json_warnings_hold_only_warnings_and_notes_go_apart():
+    from transport.errors import Note
+    from transport.report.jsonout import build_document
+
+    e = Estimate("shear_viscosity", "green_kubo", 1.0, 0.1, (0.8, 1.2), "mPa s",
+                 warnings=(Note("20 independent pieces"), "the running integral rises"))
+    assert e.warnings == ("the running integral rises",)
+    assert e.notes == ("20 independent pieces",)
+    rec = e.to_record()
+    assert rec["warnings"] == ["the running integral rises"]
+    assert rec["notes"] == ["20 independent pieces"]
+    doc = build_document("viscosity", inputs=[], settings={}, results=[e],
+                         warnings=["a run-level warning", Note("a run-level note")],
+                         notes=["said so"])
+    assert doc["warnings"] == ["a run-level warning", "the running integral rises"]
+    assert doc["notes"] == ["said so", "a run-level note", "20 independent pieces"]

@@ -95,7 +95,7 @@ from numpy.typing import ArrayLike
 
 from .._memory import bulk_empty
 from .._parallel import available_cpus, lane_map
-from ..errors import InputError
+from ..errors import InputError, Note
 from ..series import PositionSeries, Source
 from ..units import UnitSystem, get_unit_system
 from ._dcd import _bulk_dcd, _lammps_dcd
@@ -1762,8 +1762,8 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
     res = coll.finish()
     warn = [*notes, *file_notes]
     if duplicates:
-        warn.append(f"{duplicates} frame(s) repeated at the boundary between parts were "
-                    "read once")
+        warn.append(Note(f"{duplicates} frame(s) repeated at the boundary between parts "
+                         "were read once"))
     if no_positions:
         warn.append(f"{no_positions} frame(s) without positions (velocities or forces "
                     "only) were skipped")
@@ -1772,7 +1772,8 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
             f"{proc.stats.raw_jumps} coordinate jump(s) of more than half a box between "
             "frames: the coordinates look wrapped, but --unwrap none was given")
     if res["spilled"]:
-        warn.append("positions were kept in a scratch file (larger than the memory limit)")
+        warn.append(Note("positions were kept in a scratch file (larger than the memory "
+                         "limit)"))
     temp, temp_src = temperature, "set point given by the user" if temperature else ""
     if temp is None:
         twoke = None if res["twoke"] is None else res["twoke"] * mass_factor  # amu -> kg
@@ -1781,11 +1782,11 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
             temp_src = ("mean kinetic temperature from the velocities (3N - 3 degrees of "
                         "freedom)")
             # the topology formats read here do not say which bonds were constrained
-            warn.append(
+            warn.append(Note(
                 f"temperature {temp:.4g} {'(reduced)' if reduced else 'K'} from the "
                 f"velocities assumes no constraints (3N - 3 = {3 * n_atoms - 3} degrees of "
                 "freedom); with constrained bonds it is too low (rigid 3-site water: by "
-                "a third): pass --temperature with the set point")
+                "a third): pass --temperature with the set point"))
     t_unit = "tau" if reduced else "s"
     label = proc.scheme_label()
     sources = tuple(

@@ -8,10 +8,14 @@ Layout (stable keys; later commands add their own top-level keys)::
       "inputs":   [{"path", "format", "sha256", "read", "rows", "columns"}, ...],
       "settings": {...},
       "warnings": ["...", ...],
+      "notes":    ["...", ...],
       "results":  [{"quantity", "method", "value", "stderr", "interval95", "unit",
                     "group", "corrected", "window", "window_unit", "n_independent",
-                    "diagnostics", "warnings"}, ...]
+                    "diagnostics", "warnings", "notes"}, ...]
     }
+
+``warnings`` hold only cautions about the results (a pipeline can gate on an empty list);
+``notes`` say what was done or assumed (:class:`transport.errors.Note`).
 """
 
 from __future__ import annotations
@@ -24,6 +28,7 @@ from collections.abc import Iterable, Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
+from ..errors import Note
 from ..estimate import Estimate, _jsonable
 from ..series import Source
 
@@ -37,6 +42,7 @@ def build_document(
     settings: Mapping[str, Any],
     results: Sequence[Estimate],
     warnings: Iterable[str] = (),
+    notes: Iterable[str] = (),
     extra: Mapping[str, Any] | None = None,
 ) -> dict[str, Any]:
     """Assemble the common JSON document.
@@ -52,19 +58,30 @@ def build_document(
     results : sequence of Estimate
         The estimates, in print order.
     warnings : iterable of str
-        Run-level warnings (each estimate also carries its own).
+        Run-level warnings (each estimate also carries its own); items of type
+        :class:`~transport.errors.Note` go to ``notes``.
+    notes : iterable of str
+        Run-level notes (what was done or assumed).
     extra : mapping, optional
         Additional top-level keys for this command.
     """
     from .. import __version__
 
-    all_warnings = list(dict.fromkeys([*warnings, *(w for r in results for w in r.warnings)]))
+    given = list(warnings)
+    all_warnings = list(dict.fromkeys([*(w for w in given if not isinstance(w, Note)),
+                                       *(w for r in results for w in r.warnings)]))
+    all_notes = list(dict.fromkeys(
+        [*notes, *(w for w in given if isinstance(w, Note)),
+         *(n for r in results for n in r.notes)]))
+    # a message is either a warning or a note, never both
+    all_notes = [n for n in all_notes if n not in set(all_warnings)]
     doc: dict[str, Any] = {
         "version": __version__,
         "command": command,
         "inputs": [s.to_record() for s in inputs],
         "settings": _jsonable(dict(settings)),
-        "warnings": all_warnings,
+        "warnings": [str(w) for w in all_warnings],
+        "notes": [str(n) for n in all_notes],
         "results": [r.to_record() for r in results],
     }
     if extra:
