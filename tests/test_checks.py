@@ -149,3 +149,26 @@ def test_json_warnings_hold_only_warnings_and_notes_go_apart():
                          notes=["said so"])
     assert doc["warnings"] == ["a run-level warning", "the running integral rises"]
     assert doc["notes"] == ["said so", "a run-level note", "20 independent pieces"]
+
+
+def test_outputs_get_the_umask_mode_and_leave_no_temporary_file(tmp_path):
+    # issue 11: outputs were created 0600 whatever the umask; temporaries left behind
+    import os
+
+    from transport.report.figures import new_figure, save_figure
+    from transport.report.jsonout import write_json
+
+    old = os.umask(0o022)
+    try:
+        write_json({"a": 1}, tmp_path / "out.json")
+        fig, _ = new_figure(1)
+        save_figure(fig, tmp_path / "fig.png")
+        os.umask(0o077)
+        write_json({"a": 1}, tmp_path / "private.json")
+    finally:
+        os.umask(old)
+    assert (tmp_path / "out.json").stat().st_mode & 0o777 == 0o644
+    assert (tmp_path / "fig.png").stat().st_mode & 0o777 == 0o644
+    assert (tmp_path / "private.json").stat().st_mode & 0o777 == 0o600
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["fig.png", "out.json",
+                                                          "private.json"]

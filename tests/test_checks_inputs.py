@@ -126,3 +126,25 @@ def test_skip_auto_removes_a_first_row_ten_standard_deviations_away(tmp_path):
     # the truth: the same run without its first row (plain numpy mean of rows 2..301);
     # the remaining skip (if any) moves the mean by far less than its error bar
     assert abs(r["value"] - temp[1:].mean()) < r["stderr"]
+
+
+def test_volume_zero_is_refused_even_with_a_volume_column():
+    # issue 11: `--volume 0` on a log with a volume column was accepted with a note
+    with pytest.raises(InputError) as exc:
+        load_stress(LOG, temperature=96.3, volume=0.0)
+    assert "--volume 0.0 is not a positive number" in str(exc.value)
+    assert "column 'Volume'" in str(exc.value)
+
+
+def test_replicas_in_different_units_are_named_as_such():
+    # issue 11: reported as "different sampling intervals [0.0, 0.02]" with a wrong fix
+    from transport.viscosity import analyse_viscosity
+
+    lj = load_stress(LOG.parent.parent / "lj_viscosity" / "lj_visc_rep1.log.gz",
+                     temperature=0.722)
+    real = load_stress(LOG, temperature=96.3)
+    with pytest.raises(InputError) as exc:
+        analyse_viscosity([lj, real])
+    msg = str(exc.value)
+    assert "different unit systems: lj" in msg and "real" in msg
+    assert "sampling" not in msg and "--units" in msg

@@ -102,3 +102,18 @@ def test_a_fit_from_two_points_is_run_too_short(tmp_path):
     assert err.extra_time > 0 and err.time_unit == "tau"
     for word in ("only 2 fit point(s)", "0 degrees of freedom", "extend the run by"):
         assert word in str(err)
+
+
+def test_h5md_topology_without_h5py_asks_for_h5py():
+    # issue 11: the message was the mock's "MockH5pyFile() takes no arguments"
+    pytest.importorskip("MDAnalysis")
+    try:
+        import h5py  # noqa: F401
+        pytest.skip("h5py is installed")
+    except ImportError:
+        pass
+    for top in (mdtests.H5MD_xvf, mdtests.TPR_xvf):
+        with pytest.raises(InputError) as exc:
+            load_trajectory(top, mdtests.H5MD_xvf)
+        assert "pip install h5py" in str(exc.value)
+        assert "takes no arguments" not in str(exc.value)

@@ -402,3 +402,16 @@ def check_diffusion_result(analysis: Any, slist: Sequence[Any]) -> Any:
             partial=est, needed_time=need, extra_time=max(need - have, 0.0),
             time_unit=u.time_unit, path=members[-1].source.path or None)
     return analysis
+
+
+def check_replicas(slist: Sequence[Any]) -> None:
+    """InputError when replicas are in different unit systems (checked before their
+    sampling intervals, which then differ too and would be blamed instead)."""
+    names = [s.units.name for s in slist]
+    if len(set(names)) > 1:
+        k = next(i for i, nm in enumerate(names) if nm != names[0])
+        raise InputError(
+            f"replicas use different unit systems: {names[0]} "
+            f"({slist[0].source.path or 'series 1'}) and {names[k]}",
+            path=slist[k].source.path or None, expected="one unit system across replicas",
+            fix="read every replica with the same --units (or analyse them separately)")

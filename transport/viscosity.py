@@ -42,7 +42,7 @@ import numpy as np
 from scipy import optimize, stats
 
 from ._parallel import thread_map
-from .checks import check_viscosity_result, stress_sampling
+from .checks import check_replicas, check_viscosity_result, stress_sampling
 from .errors import InputError, RunTooShortError
 from .estimate import Estimate
 from .series import StressSeries
@@ -717,6 +717,7 @@ def analyse_viscosity(
         raise ValueError(f"sigma_fraction must lie in (0, 1), got {sigma_fraction!r}")
     slist = _as_list(series)
     weights = _weights(components)
+    check_replicas(slist)  # units before sampling intervals (checks.py)
     prep = _prepare(slist, components=components, skip=skip, max_lag=max_lag,
                     n_pieces=n_pieces)
     common_warn = tuple(w for s in slist for w in s.warnings) + prep.notes

@@ -278,6 +278,12 @@ def stress_from_table(
         if volume is not None:
             given = user_number(volume, what="volume", option="--volume", path=spath) \
                 * units.volume
+            if not (np.isfinite(given) and given > 0):
+                raise InputError(f"--volume {volume!r} is not a positive number",
+                                 path=spath,
+                                 expected=f"the box volume in {units.length_label}^3",
+                                 fix="pass a positive --volume, or leave it out to use the "
+                                     f"file's {vol_how}")
             mean = float(np.mean(vol_file))
             if not np.isclose(given, mean, rtol=1e-3, atol=0):
                 warnings.append(

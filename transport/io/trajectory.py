@@ -910,11 +910,17 @@ def _open_topology(topology: Path, reduced: bool, *, first: Path | None = None,
             # otherwise opened one by one below: the error then names the culprit
     u, message = _mda_call(lambda: mda.Universe(str(topology), **kw))
     if message is not None:
+        package = _missing_package(message)
+        if package is None and "mock" in message.lower() and "h5py" in message.lower():
+            # MDAnalysis stands a mock in for a missing h5py; its error names the mock
+            package, message = "h5py", "h5py is not installed"
         raise InputError(
             f"cannot read the topology ({message})",
             path=str(topology),
             expected="a topology MDAnalysis reads (PDB, GRO, PSF, TPR, LAMMPS data, ...)",
-            fix="check the file and its suffix (MDAnalysis chooses the parser by suffix)",
+            fix=(f"install the package MDAnalysis needs for this format: pip install "
+                 f"{package}" if package else
+                 "check the file and its suffix (MDAnalysis chooses the parser by suffix)"),
         )
     return u
 

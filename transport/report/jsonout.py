@@ -32,7 +32,7 @@ from ..errors import Note
 from ..estimate import Estimate, _jsonable
 from ..series import Source
 
-__all__ = ["build_document", "dumps", "write_json"]
+__all__ = ["atomic_write_bytes", "build_document", "dumps", "write_json"]
 
 
 def build_document(
@@ -107,13 +107,43 @@ def write_json(doc: Mapping[str, Any], path: str | os.PathLike[str]) -> None:
     _atomic_write_text(Path(path), text)
 
 
-def _atomic_write_text(path: Path, text: str) -> None:
+def _umask() -> int:
+    """The process's umask (read without changing it where the system says it)."""
+    try:
+        with open("/proc/self/status", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("Umask:"):
+                    return int(line.split()[1], 8)
+    except (OSError, ValueError):
+        pass
+    mask = os.umask(0o022)  # elsewhere: set and restore at once
+    os.umask(mask)
+    return mask
+
+
+def atomic_write_bytes(path: Path, data: bytes) -> None:
+    """Write `data` to `path` via a temporary file in the same folder and a rename.
+
+    The temporary file is created only once the content is ready (one write, then the
+    rename), is removed on every exit Python sees (errors, Ctrl-C), and the result gets the
+    ordinary mode of a new file under the umask (0644 with umask 022), not the 0600 of a
+    temporary file.
+    """
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
     try:
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            fh.write(text)
+        try:
+            os.fchmod(fd, 0o666 & ~_umask())
+            view = memoryview(data)
+            while view:
+                view = view[os.write(fd, view):]
+        finally:
+            os.close(fd)
         os.replace(tmp, path)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
         raise
+
+
+def _atomic_write_text(path: Path, text: str) -> None:
+    atomic_write_bytes(path, text.encode("utf-8"))
