@@ -54,7 +54,7 @@ def test_published_viscosity_inside_interval(analysis):
         assert lo - ETA_FERRARIO_ERR <= ETA_FERRARIO <= hi + ETA_FERRARIO_ERR, est
         # 4 x 1000 tau of an 864-atom fluid: a few per cent (common practice for this size)
         assert est.stderr / est.value < 0.08
-        assert est.unit == "reduced"
+        assert est.unit == "reduced (lj)"
 
 
 def test_green_kubo_and_einstein_agree_on_real_data(analysis):

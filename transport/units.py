@@ -98,7 +98,7 @@ class UnitSystem:
     @property
     def viscosity_unit(self) -> str:
         """Unit label for reported viscosity."""
-        return "reduced" if self.reduced else "mPa s"
+        return "reduced (lj)" if self.reduced else "mPa s"
 
     @property
     def viscosity_scale(self) -> float:
@@ -108,7 +108,7 @@ class UnitSystem:
     @property
     def diffusion_unit(self) -> str:
         """Unit label for reported self-diffusion."""
-        return "reduced" if self.reduced else "1e-9 m^2/s"
+        return "reduced (lj)" if self.reduced else "1e-9 m^2/s"
 
     @property
     def diffusion_scale(self) -> float:
