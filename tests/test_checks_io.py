@@ -117,3 +117,11 @@ def test_h5md_topology_without_h5py_asks_for_h5py():
             load_trajectory(top, mdtests.H5MD_xvf)
         assert "pip install h5py" in str(exc.value)
         assert "takes no arguments" not in str(exc.value)
+
+
+def test_opening_a_trajectory_shows_a_bar_when_asked(tmp_path, capsys):
+    # issue 11: a compressed dump took ~10 s to open (MDAnalysis indexes its frames) with
+    # no bar; the bar now starts before the frames are indexed
+    load_trajectory(LJ_TOP, _cut_dcd(tmp_path, 10), units="lj", progress=True)
+    err = capsys.readouterr().err
+    assert "opening (indexing frames)" in err and "reading frames" in err
