@@ -125,3 +125,16 @@ def test_opening_a_trajectory_shows_a_bar_when_asked(tmp_path, capsys):
     load_trajectory(LJ_TOP, _cut_dcd(tmp_path, 10), units="lj", progress=True)
     err = capsys.readouterr().err
     assert "opening (indexing frames)" in err and "reading frames" in err
+
+
+def test_a_fit_window_too_narrow_asks_for_a_wider_window():
+    # issue 11: a fit window shorter than two frames; here 1-1.5 tau of a 100 tau run
+    # (frames every 0.25 tau): 2 points; the run is long enough, the window is not
+    from transport.diffusion import analyse_diffusion
+    from transport.errors import RunTooShortError
+
+    s = load_trajectory(LJ_TOP, LJ_DCD, units="lj")[0]
+    with pytest.raises(InputError) as exc:
+        analyse_diffusion(s, fit_window=(1.0, 1.5), vacf="no")
+    assert not isinstance(exc.value, RunTooShortError)
+    assert "only 2 fit point(s)" in str(exc.value) and "wider --fit-window" in str(exc.value)

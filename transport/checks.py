@@ -396,6 +396,14 @@ def check_diffusion_result(analysis: Any, slist: Sequence[Any]) -> Any:
                 f"{MIN_FIT_POINTS} are needed)" if bad_points else
                 f"its 95% interval [{est.interval[0]:.3g}, {est.interval[1]:.3g}] includes "
                 "zero or negative values")
+        if bad_points and need <= have:
+            # the run is long enough: the window given was too narrow
+            raise InputError(
+                f"{est.group or 'all'}: self-diffusion {est.value:.4g} {est.unit} rests on "
+                f"{what}", path=members[-1].source.path or None,
+                expected=f"a fit window holding at least {MIN_FIT_POINTS} MSD points "
+                         f"(spaced by {spacing:.3g} {u.time_unit})",
+                fix="give a wider --fit-window, or leave it automatic")
         raise RunTooShortError(
             f"{est.group or 'all'}: self-diffusion {est.value:.4g} {est.unit} rests on "
             f"{what}; the run ({have:.3g} {u.time_unit}) is too short for the fit",
