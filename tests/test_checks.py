@@ -172,3 +172,16 @@ def test_outputs_get_the_umask_mode_and_leave_no_temporary_file(tmp_path):
     assert (tmp_path / "private.json").stat().st_mode & 0o777 == 0o600
     assert sorted(p.name for p in tmp_path.iterdir()) == ["fig.png", "out.json",
                                                           "private.json"]
+
+
+def test_a_cutoff_or_window_at_the_maximum_lag_is_a_warning(lj):
+    # issue 11: a Green–Kubo cutoff at the maximum lag was only in the JSON's cutoff_rule.
+    # With the longest lag at 0.3 tau the LJ running integral (which levels off at 2-3 tau,
+    # tests/data README) is still rising: the spread cannot reach 0.4 of the mean there
+    r = analyse_viscosity(lj, method="both", max_lag=0.3)
+    gk, ei = r.green_kubo, r.einstein
+    assert gk.diagnostics["cutoff_rule"].startswith("maximum lag")
+    assert any("cutoff is the maximum lag" in w for w in gk.warnings)
+    assert any("window ends at the maximum lag" in w for w in ei.warnings)
+    full = analyse_viscosity(lj).green_kubo
+    assert not any("maximum lag (" in w for w in full.warnings)

@@ -192,11 +192,17 @@ def check_viscosity_result(analysis: Any, slist: Sequence[Any]) -> Any:
     slist : sequence of StressSeries
         The series analysed (their total duration is the run length).
 
+    Also makes printed what the user must see: a Green–Kubo cutoff at the maximum lag (the
+    time-decomposition threshold was never reached, so the plateau is not located inside
+    the computed lags), and an Einstein fit window that ends at the maximum lag, each
+    become a warning.
+
     Returns
     -------
     ViscosityAnalysis
-        `analysis`, unchanged, when every interval lies above zero.
+        `analysis` with those warnings added, when every interval lies above zero.
     """
+    analysis = _window_warnings(analysis)
     for est in analysis.estimates:
         lo = est.interval[0]
         if lo > 0 and est.value > 0:
@@ -223,6 +229,33 @@ def check_viscosity_result(analysis: Any, slist: Sequence[Any]) -> Any:
             path=slist[-1].source.path or None, fix=fix,
         )
     return analysis
+
+
+def _window_warnings(analysis: Any) -> Any:
+    """Warnings for a Green–Kubo cutoff or an Einstein window at the maximum lag."""
+    from dataclasses import replace
+
+    out = {}
+    for field in ("green_kubo", "einstein"):
+        est = getattr(analysis, field, None)
+        if est is None or est.window is None:
+            continue
+        d = est.diagnostics
+        top = d.get("max_lag")
+        if top is None or not est.window[1] >= top * (1 - 1e-9):
+            continue
+        unit = est.window_unit
+        if field == "green_kubo":
+            text = (f"the Green–Kubo cutoff is the maximum lag ({top:.3g} {unit}): the "
+                    "replica spread never reached the threshold, so the plateau is not "
+                    "located within the computed lags; check the running integral, or give "
+                    "a longer --max-lag")
+        else:
+            text = (f"the Einstein fit window ends at the maximum lag ({top:.3g} {unit}): "
+                    "the linear regime may continue beyond it; give a longer --max-lag")
+        if text not in est.warnings:
+            out[field] = est.with_warnings(text)
+    return replace(analysis, **out) if out else analysis
 
 
 def pressure_outlier(pressure: np.ndarray) -> tuple[int, int, float, bool] | None:
