@@ -185,3 +185,36 @@ def test_a_cutoff_or_window_at_the_maximum_lag_is_a_warning(lj):
     assert any("window ends at the maximum lag" in w for w in ei.warnings)
     full = analyse_viscosity(lj).green_kubo
     assert not any("maximum lag (" in w for w in full.warnings)
+
+
+def test_an_unwritable_output_folder_is_named_not_a_temporary_file(tmp_path):
+    # issue 11: the message named the temporary file, after the computation
+    import os
+
+    from transport.report.jsonout import folder_not_writable, write_json
+
+    assert folder_not_writable(tmp_path / "new" / "out.json") is None
+    assert not (tmp_path / "new").exists()  # nothing created by the probe
+    afile = tmp_path / "afile"
+    afile.write_text("x")
+    assert "is a file, not a folder" in folder_not_writable(afile / "out.json")
+    locked = tmp_path / "locked"
+    locked.mkdir()
+    locked.chmod(0o500)
+    try:
+        if os.access(locked, os.W_OK) and os.geteuid() == 0:
+            # root writes anywhere by permission bits; the probe agrees with the writer
+            assert folder_not_writable(locked / "out.json") is None
+        else:
+            assert str(locked) in folder_not_writable(locked / "out.json")
+            with pytest.raises(OSError) as exc:
+                write_json({"a": 1}, locked / "out.json")
+            assert exc.value.filename == str(locked)
+    finally:
+        locked.chmod(0o700)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["afile", "locked"]
+    if Path("/proc/self").exists():  # Linux: a folder nobody may create files in
+        assert "'/proc'" in folder_not_writable("/proc/out.json")
+        with pytest.raises(OSError) as exc:
+            write_json({"a": 1}, "/proc/out.json")
+        assert exc.value.filename == "/proc"

@@ -32,7 +32,8 @@ from ..errors import Note
 from ..estimate import Estimate, _jsonable
 from ..series import Source
 
-__all__ = ["atomic_write_bytes", "build_document", "dumps", "write_json"]
+__all__ = ["atomic_write_bytes", "build_document", "dumps", "folder_not_writable",
+           "write_json"]
 
 
 def build_document(
@@ -129,8 +130,11 @@ def atomic_write_bytes(path: Path, data: bytes) -> None:
     ordinary mode of a new file under the umask (0644 with umask 022), not the 0600 of a
     temporary file.
     """
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    except OSError as exc:  # name the folder, not a temporary file
+        raise OSError(exc.errno, exc.strerror, str(path.parent)) from None
     try:
         try:
             os.fchmod(fd, 0o666 & ~_umask())
@@ -143,6 +147,29 @@ def atomic_write_bytes(path: Path, data: bytes) -> None:
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
         raise
+
+
+def folder_not_writable(path: str | os.PathLike[str]) -> str | None:
+    """Why an output could not be written at `path`, found before any computation.
+
+    Tries what writing will do: the nearest existing folder must be a folder, and a
+    temporary file must be creatable in it (this also catches read-only file systems and
+    folders a privileged user may not write, where permission bits say nothing). Returns
+    None when it can be written, else the reason naming the folder. Nothing is left
+    behind.
+    """
+    target = Path(path).resolve()
+    folder = target.parent
+    while not folder.exists() and folder != folder.parent:
+        folder = folder.parent
+    if not folder.is_dir():
+        return f"{str(folder)!r} is a file, not a folder"
+    try:
+        with tempfile.TemporaryFile(dir=folder):
+            pass
+    except OSError as exc:
+        return f"cannot write in the folder {str(folder)!r} ({exc.strerror or exc})"
+    return None
 
 
 def _atomic_write_text(path: Path, text: str) -> None:
