@@ -16,6 +16,10 @@ sniff_format(path) -> (format, compression)
     What :func:`read_table` would take the file for.
 parse_run(value) -> None | int | (first, last) | "all" | "last"
     The accepted forms of a ``run`` choice (for command lines).
+checked_column(table, name, *, path) -> (values, file_name)
+    A column checked before a statistic is taken of it (present, named once, finite);
+    with ``column_unit``, ``column_file_name``, ``check_finite_column`` and
+    ``even_time_axis`` (the rows' evenly spaced time axis in the reported unit).
 
 Formats (chosen by content, then suffix; ``.gz``, ``.bz2`` and ``.xz`` are read
 transparently):
@@ -48,6 +52,13 @@ from ..series import Source, StressSeries
 from ..units import UnitSystem
 from ._assemble import RunSpec, parse_run
 from ._columns import PRESSURE_COMPONENTS, TENSOR_ORDER, canonical_name, map_columns
+from ._table_checks import (
+    check_finite_column,
+    checked_column,
+    column_file_name,
+    column_unit,
+    even_time_axis,
+)
 
 __all__ = [
     "PRESSURE_COMPONENTS",
@@ -55,6 +66,11 @@ __all__ = [
     "BlockInfo",
     "Table",
     "canonical_name",
+    "check_finite_column",
+    "checked_column",
+    "column_file_name",
+    "column_unit",
+    "even_time_axis",
     "load_stress",
     "load_stress_many",
     "map_columns",

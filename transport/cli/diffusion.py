@@ -1,0 +1,137 @@
+"""``transport diffusion``: self-diffusion from trajectories."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import click
+
+from ._group import main
+from ._shared import (
+    check_distinct,
+    check_outputs,
+    check_plot_path,
+    finish,
+    json_option,
+    parse_time,
+    plot_option,
+    quiet,
+)
+
+
+def _diffusion_window(value: str, scale: float) -> tuple[float, float] | str:
+    """``auto`` or ``T0:T1`` (reported time unit) -> internal time units."""
+    if value == "auto":
+        return "auto"
+    try:
+        a, b = (float(v) for v in value.split(":"))
+    except ValueError:
+        raise click.BadParameter(f"expected 'auto' or T0:T1, got {value!r}",
+                                 param_hint="--fit-window") from None
+    if not 0 <= a < b:
+        raise click.BadParameter(f"expected 0 <= T0 < T1, got {value!r}",
+                                 param_hint="--fit-window")
+    return a / scale, b / scale
+
+
+@main.command()
+@click.argument("topology", type=click.Path(dir_okay=False))
+@click.argument("trajectories", nargs=-1, required=True, type=click.Path(dir_okay=False))
+@click.option("--select", default="all", show_default=True,
+              help="MDAnalysis selection of the atoms to analyse, e.g. 'resname SOL'.")
+@click.option("--group-by", "group_by",
+              type=click.Choice(["atom", "molecule", "residue", "type"]), default="atom",
+              show_default=True,
+              help="Particles and species: the selected atoms as one group, atoms by type, "
+                   "or centres of mass of residues / bonded molecules by name.")
+@click.option("--unwrap", type=click.Choice(["auto", "none", "images", "displacement"]),
+              default="auto", show_default=True,
+              help="Continuous positions from unwrapped coordinates, image flags, or "
+                   "minimum-image steps in the instantaneous box ('auto' picks in that "
+                   "order).")
+@click.option("--fit-window", default="auto", show_default=True,
+              help="MSD fit window 'auto' (local slope) or T0:T1 in ps (tau for --units lj).")
+@click.option("--skip", default="0", show_default=True,
+              help="Initial time to drop, in ps (tau).")
+@click.option("--units", default=None,
+              help="Unit convention: required for LAMMPS dumps (real, metal, lj, ...); "
+                   "'lj' keeps reduced units; otherwise it sets the unit of --timestep.")
+@click.option("--timestep", type=float, default=None,
+              help="Integration time step (engine time unit, ps by default): frame times "
+                   "are the stored step numbers times this.")
+@click.option("--frame-interval", type=float, default=None,
+              help="Time between frames (engine time unit, ps by default), overriding the "
+                   "file.")
+@click.option("--temperature", type=float, default=None,
+              help="Temperature (K, or reduced), recorded for finite-size corrections; "
+                   "default: from the velocities when present.")
+@click.option("--continue", "continuation", is_flag=True,
+              help="The trajectories are consecutive parts of one run (default: "
+                   "independent replicas).")
+@click.option("--vacf", type=click.Choice(["auto", "yes", "no"]), default="auto",
+              show_default=True,
+              help="Velocity-autocorrelation (Green–Kubo) cross-check: when velocities are "
+                   "sampled finely enough, always, or never.")
+@click.option("--remove-drift/--keep-drift", default=True, show_default=True,
+              help="Remove the centre-of-mass drift of the whole system.")
+@click.option("--scratch", type=click.Path(file_okay=False), default=None,
+              help="Folder for the scratch file used when positions exceed the memory.")
+@json_option
+@plot_option
+@click.pass_context
+def diffusion(ctx: click.Context, topology: str, trajectories: tuple[str, ...], select: str,
+              group_by: str, unwrap: str, fit_window: str, skip: str, units: str | None,
+              timestep: float | None, frame_interval: float | None,
+              temperature: float | None, continuation: bool, vacf: str, remove_drift: bool,
+              scratch: str | None, json_path: str | None, plot_path: str | None) -> None:
+    """Self-diffusion from TOPOLOGY and TRAJECTORIES (several files = replicas, or parts of
+    one run with --continue), per species, with the MSD fitted by generalized least squares
+    and the VACF as a cross-check."""
+    from .._progress import want_progress
+    from ..diffusion import analyse_diffusion
+    from ..io.trajectory import load_trajectory
+    from ..report.text import format_estimates
+    from ..units import get_unit_system
+
+    check_plot_path(plot_path)
+    if units is not None:
+        try:
+            get_unit_system(units)
+        except ValueError as exc:
+            raise click.BadParameter(str(exc), param_hint="--units") from None
+    check_outputs((topology, *trajectories), json=json_path, plot=plot_path)
+    check_distinct(trajectories)
+    ts = 1.0 if units is not None and get_unit_system(units).reduced else 1e12
+    window = _diffusion_window(fit_window, ts)
+    skip_t = parse_time(skip, "--skip") or 0.0
+    series = load_trajectory(
+        topology, list(trajectories), select=select, group_by=group_by,  # type: ignore[arg-type]
+        unwrap=unwrap, units=units, timestep=timestep,  # type: ignore[arg-type]
+        frame_interval=frame_interval, skip=skip_t / ts, temperature=temperature,
+        continuation=continuation, scratch_dir=scratch,
+        # velocities serve the VACF and, without --temperature, the kinetic temperature
+        velocities=vacf != "no" or temperature is None,
+        progress=want_progress(quiet(ctx)),
+    )
+    result = analyse_diffusion(series, fit_window=window,  # type: ignore[arg-type]
+                               remove_drift=remove_drift, vacf=vacf)  # type: ignore[arg-type]
+    est = result.estimates
+    n = len(trajectories)
+    kind = ("consecutive parts of one run" if continuation else "independent replicas")
+    title = f"self-diffusion from {n} trajectory file(s)" + (f" ({kind})" if n > 1 else "")
+
+    def figure() -> Any:
+        from ..report.diffusion_plots import diffusion_figure
+
+        return diffusion_figure(result.msd, result.vacf)
+
+    settings = {"topology": topology, "select": select, "group_by": group_by,
+                "unwrap": unwrap, "unwrap_used": [s.unwrap for s in series],
+                "fit_window": fit_window, "skip": skip, "units": series[0].units.name,
+                "timestep": timestep, "frame_interval": frame_interval,
+                "temperature": temperature, "continue": continuation, "vacf": vacf,
+                "remove_drift": remove_drift}
+    finish(ctx, "diffusion", json_path=json_path, plot_path=plot_path, figure=figure,
+            inputs=[src for s in series for src in s.sources], settings=settings,
+            results=est, warnings=result.notes,
+            text=format_estimates(est, title=title, notes=result.notes))
