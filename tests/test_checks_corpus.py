@@ -113,3 +113,81 @@ def test_case_is_one_line_exit_2_nothing_written(name, tmp_path):
         assert not out.exists()  # nothing written
         assert _digest(inp) == before  # inputs unchanged
     assert runs[0].stderr == runs[1].stderr  # reruns identical
+
+
+def test_ctrl_c_during_the_computation_exits_130_with_nothing_written(tmp_path,
+                                                                       monkeypatch):
+    import transport.viscosity as visc
+
+    def interrupted(*a, **k):
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(visc, "analyse_viscosity", interrupted)
+    out = tmp_path / "out"
+    res = CliRunner().invoke(main, ["--quiet", "viscosity", str(ARGON), "--temperature",
+                                    "96.3", "--json", str(out / "r.json")])
+    assert res.exit_code == 130, res.output
+    assert res.stderr.strip() == "transport: interrupted; nothing was written"
+    assert not out.exists()
+
+
+def test_ctrl_c_while_writing_completes_the_outputs_and_exits_0(tmp_path, monkeypatch):
+    # issue 11: SIGINT while writing outputs exited -2 (once losing them, exiting 0)
+    import os
+    import signal
+
+    from transport.report import jsonout
+
+    real = jsonout.write_json
+
+    def write_then_interrupted(doc, path):
+        os.kill(os.getpid(), signal.SIGINT)  # Ctrl-C arrives between the two outputs
+        real(doc, path)
+
+    monkeypatch.setattr(jsonout, "write_json", write_then_interrupted)
+    out = tmp_path / "out"
+    res = CliRunner().invoke(main, ["viscosity", str(LJ_LOG), "--temperature", "0.722",
+                                    "--json", str(out / "r.json"),
+                                    "--plot", str(out / "r.png")])
+    assert res.exit_code == 0, res.output
+    assert sorted(p.name for p in out.iterdir()) == ["r.json", "r.png"]
+    assert "interrupt received while the outputs were written" in res.stderr
+    assert signal.getsignal(signal.SIGINT) is signal.default_int_handler  # restored
+
+
+def test_an_unwritable_output_folder_is_refused_before_reading(tmp_path):
+    if not Path("/proc/self").exists():
+        pytest.skip("needs a folder nobody may write (Linux /proc)")
+    res = CliRunner().invoke(main, ["viscosity", str(ARGON), "--temperature", "96.3",
+                                    "--json", "/proc/r.json"])
+    assert res.exit_code == 2
+    assert "cannot write in the folder '/proc'" in res.stderr
+    assert ".r.json." not in res.stderr  # no temporary file named
+
+
+def test_sigint_to_a_real_process_leaves_nothing_or_everything(tmp_path):
+    # the rule of issue 11: Ctrl-C either leaves no output and exits 130, or the command
+    # completes and exits 0; here it arrives while the 12 MB n-hexane log is being read
+    import shutil
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    exe = shutil.which("transport", path=str(Path(sys.executable).parent))
+    if exe is None:
+        pytest.skip("the transport command is not installed beside this Python")
+    out = tmp_path / "out"
+    proc = subprocess.Popen(
+        [exe, "viscosity", str(DATA / "alkane" / "hexane.log.xz"), "--temperature", "298",
+         "--json", str(out / "r.json"), "--plot", str(out / "r.png")],
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+    time.sleep(1.5)
+    proc.send_signal(signal.SIGINT)
+    _, err = proc.communicate(timeout=300)
+    if proc.returncode == 130:
+        assert err.decode().strip() == "transport: interrupted; nothing was written"
+        assert not out.exists() or not any(out.iterdir())
+    else:
+        assert proc.returncode == 0, err.decode()
+        assert sorted(p.name for p in out.iterdir()) == ["r.json", "r.png"]
