@@ -138,3 +138,8 @@ def test_a_fit_window_too_narrow_asks_for_a_wider_window():
         analyse_diffusion(s, fit_window=(1.0, 1.5), vacf="no")
     assert not isinstance(exc.value, RunTooShortError)
     assert "only 2 fit point(s)" in str(exc.value) and "wider --fit-window" in str(exc.value)
+
+
+def test_an_implausible_temperature_for_a_trajectory_is_refused():
+    with pytest.raises(InputError, match="not a plausible temperature"):
+        load_trajectory(LJ_TOP, LJ_DCD, units="lj", temperature=1e30)

@@ -109,9 +109,10 @@ def stress_first_lag(pieces: Sequence[Sequence[np.ndarray]], weights: np.ndarray
         left -= n
         if n < 2:
             continue
-        raw = np.stack([np.asarray(r[:n], dtype=np.float64) for r in rows])
         for c in used:
-            y = mix[c] @ raw
+            # one traceless component from the rows it uses (no stack of all six rows)
+            y = sum(float(w) * np.asarray(rows[j][:n], dtype=np.float64)
+                    for j, w in enumerate(mix[c]) if w != 0.0)
             if offsets is not None:
                 y = y - offsets[i][c]
             c0 += weights[c] * float(y @ y) / n

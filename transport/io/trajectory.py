@@ -95,6 +95,7 @@ from numpy.typing import ArrayLike
 
 from .._memory import bulk_empty
 from .._parallel import available_cpus, lane_map
+from ..checks import temperature_plausible
 from ..errors import InputError, Note
 from ..series import PositionSeries, Source
 from ..units import UnitSystem, get_unit_system
@@ -1078,6 +1079,8 @@ def load_trajectory(
         if val is not None and not (np.isfinite(val) and val > 0):
             raise InputError(f"{name} is {val!r}", expected=f"a positive {name}",
                              fix=f"pass a positive --{name.replace('_', '-')}")
+    if temperature is not None:
+        temperature_plausible(float(temperature), reduced=reduced)
     if not (np.isfinite(skip) and skip >= 0):
         raise InputError(f"skip is {skip!r}", expected="a non-negative time",
                          fix="pass a non-negative --skip")
