@@ -191,3 +191,18 @@ def test_sigint_to_a_real_process_leaves_nothing_or_everything(tmp_path):
     else:
         assert proc.returncode == 0, err.decode()
         assert sorted(p.name for p in out.iterdir()) == ["r.json", "r.png"]
+
+
+def test_diffusion_json_keeps_notes_out_of_the_warnings(tmp_path):
+    # the engine's DCD has no velocities: that the VACF cross-check was not made is a
+    # note; with --temperature given nothing else is a caution for this run
+    out = tmp_path / "d.json"
+    res = CliRunner().invoke(main, ["--quiet", "diffusion", str(LJ_TOP), str(LJ_DCD),
+                                    "--units", "lj", "--temperature", "0.722",
+                                    "--json", str(out)])
+    assert res.exit_code == 0, res.output
+    import json
+
+    doc = json.loads(out.read_text())
+    assert any("VACF cross-check not made" in n for n in doc["notes"])
+    assert not any("VACF cross-check not made" in w for w in doc["warnings"])

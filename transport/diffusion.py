@@ -95,7 +95,7 @@ import scipy.fft as sfft
 from scipy import special
 
 from .checks import check_diffusion_result
-from .errors import InputError, RunTooShortError
+from .errors import InputError, Note, RunTooShortError
 from .estimate import Estimate
 from .msd_fit import (
     CHI2_SCALE_P,
@@ -462,7 +462,7 @@ def analyse_diffusion(
                                  path=slist[0].source.path or None,
                                  expected="velocities in every frame",
                                  fix="write velocities, or drop the VACF estimate")
-            notes.append("no velocities in the trajectory: VACF cross-check not made")
+            notes.append(Note("no velocities in the trajectory: VACF cross-check not made"))
         else:
             for name in names:
                 members = [s for s in slist if name in s.species_names]
