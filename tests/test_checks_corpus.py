@@ -145,6 +145,7 @@ def test_ctrl_c_while_writing_completes_the_outputs_and_exits_0(tmp_path, monkey
         real(doc, path)
 
     monkeypatch.setattr(jsonout, "write_json", write_then_interrupted)
+    before = signal.getsignal(signal.SIGINT)  # ignored when pytest runs in the background
     out = tmp_path / "out"
     res = CliRunner().invoke(main, ["viscosity", str(LJ_LOG), "--temperature", "0.722",
                                     "--json", str(out / "r.json"),
@@ -152,7 +153,7 @@ def test_ctrl_c_while_writing_completes_the_outputs_and_exits_0(tmp_path, monkey
     assert res.exit_code == 0, res.output
     assert sorted(p.name for p in out.iterdir()) == ["r.json", "r.png"]
     assert "interrupt received while the outputs were written" in res.stderr
-    assert signal.getsignal(signal.SIGINT) is signal.default_int_handler  # restored
+    assert signal.getsignal(signal.SIGINT) == before  # restored
 
 
 def test_an_unwritable_output_folder_is_refused_before_reading(tmp_path):
@@ -181,7 +182,9 @@ def test_sigint_to_a_real_process_leaves_nothing_or_everything(tmp_path):
     proc = subprocess.Popen(
         [exe, "viscosity", str(DATA / "alkane" / "hexane.log.xz"), "--temperature", "298",
          "--json", str(out / "r.json"), "--plot", str(out / "r.png")],
-        stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+        # a background pytest ignores SIGINT and its children would inherit that
+        preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
     time.sleep(1.5)
     proc.send_signal(signal.SIGINT)
     _, err = proc.communicate(timeout=300)

@@ -27,13 +27,23 @@ import numpy as np
 from .errors import InputError, RunTooShortError
 
 __all__ = [
+    "MAX_TEMPERATURE_K",
+    "MAX_TEMPERATURE_REDUCED",
+    "MIN_FIT_POINTS",
     "OUTLIER_MAD",
+    "PRESSURE_MISMATCH",
     "STRESS_MIN_FIRST",
     "STRESS_WARN_FIRST",
+    "TEMPERATURE_TOLERANCE",
+    "check_diffusion_result",
+    "check_replicas",
     "check_viscosity_result",
+    "pressure_column_mismatch",
     "pressure_outlier",
     "stress_first_lag",
     "stress_sampling",
+    "temperature_against_column",
+    "temperature_plausible",
 ]
 
 #: Normalised stress autocorrelation one sample after the origin below which Green–Kubo and
@@ -186,17 +196,17 @@ def check_viscosity_result(analysis: Any, slist: Sequence[Any]) -> Any:
     ``partial`` and the run length at which the interval would be about +-50% of the
     value (the error bar falls as 1/sqrt(run length) once the pieces are independent).
 
+    Also makes printed what the user must see: a Green–Kubo cutoff at the maximum lag (the
+    time-decomposition threshold was never reached, so the plateau is not located inside
+    the computed lags), and an Einstein fit window that ends at the maximum lag, each
+    become a warning.
+
     Parameters
     ----------
     analysis : ViscosityAnalysis
         The estimates made.
     slist : sequence of StressSeries
         The series analysed (their total duration is the run length).
-
-    Also makes printed what the user must see: a Green–Kubo cutoff at the maximum lag (the
-    time-decomposition threshold was never reached, so the plateau is not located inside
-    the computed lags), and an Einstein fit window that ends at the maximum lag, each
-    become a warning.
 
     Returns
     -------
