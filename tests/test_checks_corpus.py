@@ -73,6 +73,9 @@ CASES = {
     "one absurd pressure cell": lambda d: (
         ["viscosity", str(_spiked_log(d / "spike.log")), "--temperature", "96.3"],
         ("spike.log:400:", "damaged value", "fix: repair or remove")),
+    "one absurd cell, averaged": lambda d: (
+        ["average", str(_spiked_log(d / "spike.log")), "--column", "Pxy"],
+        ("spike.log:400:", "'Pxy'", "damaged value")),
     "volume 0 with a volume column": lambda d: (
         ["viscosity", str(ARGON), "--temperature", "96.3", "--volume", "0"],
         ("--volume 0.0 is not a positive number",)),

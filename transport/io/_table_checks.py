@@ -175,4 +175,24 @@ def checked_column(table: Table, name: str, *, path: str) -> tuple[np.ndarray, s
                 path=path, line=b.header_line, expected="distinct column names",
                 fix="rename or remove the repeated column")
     check_finite_column(table, col, x)
+    _check_spike(table, col, x, path)
     return x, col
+
+
+def _check_spike(table: Table, col: str, x: np.ndarray, path: str) -> None:
+    """InputError for an isolated value beyond the robust rule of
+    :func:`transport.checks.pressure_outlier` (a damaged cell: one 1e12 among pressures
+    made a mean of 8e7 without a word)."""
+    from ..checks import OUTLIER_MAD, pressure_outlier
+
+    worst = pressure_outlier(np.asarray(x)[None, :])
+    if worst is None or not worst[3]:
+        return
+    _, row, far, _ = worst
+    raise InputError(
+        f"column {col!r} holds {float(x[row]):.6g} in row {row + 1}, {far:.3g} robust "
+        "standard deviations (1.4826 x the median absolute deviation) from its median while "
+        "the rows around it are ordinary: a damaged value, not a fluctuation",
+        path=path, line=table.line_of(row),
+        expected=f"values within {OUTLIER_MAD:g} robust standard deviations",
+        fix="repair or remove the damaged row")
