@@ -20,7 +20,6 @@ from scipy import stats
 
 import transport.viscosity as tv
 from transport.io import load_stress
-from transport.io.trajectory import load_trajectory
 from transport.series import StressSeries
 from transport.viscosity import analyse_viscosity
 
@@ -108,20 +107,3 @@ def test_green_kubo_error_bar_passes_the_time_block_test(series):
     chi2 = float(np.sum(w * (v - np.sum(w * v) / np.sum(w)) ** 2))
     lo, hi = stats.chi2.ppf([0.025, 0.975], k - 1)
     assert lo < chi2 < hi, (v, s, chi2)
-
-
-def test_diffusion_error_bar_carries_the_block_scatter():
-    # sites of a molecular liquid move collectively: 8 time blocks of 250 ps scatter
-    # 4.4x their random-walk errors (measured), and the reported error bar carries it
-    s = load_trajectory(DATA / "hexane.data", DATA / "hexane_wrapped.dcd", units="real",
-                        timestep=2.0, group_by="atom", temperature=T)[0]
-    from transport.diffusion import analyse_diffusion
-
-    (e,) = analyse_diffusion(s, vacf="no").msd
-    d = e.diagnostics
-    assert d["block_count"] == 8
-    assert d["block_scale_factor"] > 2.0
-    assert e.stderr == pytest.approx(d["stderr_model"] * d["block_scale_factor"], rel=1e-12)
-    # D of the sites, measured 5.33 +- 0.12 (1e-9 m^2/s); the MSD slope over 20-100 ps is
-    # 5.35 (issue 18, plain numpy); within 3 stated errors of that
-    assert abs(e.value - 5.35) < 3 * e.stderr

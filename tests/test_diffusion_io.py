@@ -738,7 +738,7 @@ def test_cli_diffusion_writes_json_and_plot(tmp_path):
     r = CliRunner().invoke(main, ["-q", "diffusion", str(top), str(traj), "--group-by",
                                   "residue", "--json", str(out), "--plot", str(fig)])
     assert r.exit_code == 0, r.output
-    assert "msd_gls" in r.output and "OIL" in r.output and "ADD" in r.output
+    assert "msd_wls" in r.output and "OIL" in r.output and "ADD" in r.output
     doc = json.loads(out.read_text())
     assert doc["command"] == "diffusion"
     assert [x["group"] for x in doc["results"]] == ["OIL", "ADD"]
@@ -760,8 +760,12 @@ def test_cli_fit_window_in_ps(tmp_path):
     r = CliRunner().invoke(main, ["-q", "diffusion", str(top), str(traj), "--fit-window",
                                   "10:100", "--json", str(out)])
     assert r.exit_code == 0, r.output
-    assert json.loads(out.read_text())["results"][0]["window"] == pytest.approx([10, 100],
-                                                                               rel=1e-6)
+    res = json.loads(out.read_text())["results"][0]
+    # 300 frames 2 ps apart: 8 time blocks of 37 frames hold lags up to 18 frames (36 ps);
+    # the window asked for is kept as the whole-run fit's, and the cut is said
+    assert res["window"] == pytest.approx([10, 36], rel=1e-6)
+    assert res["diagnostics"]["whole_run_window"] == pytest.approx([10, 100], rel=1e-6)
+    assert any("fit window was cut" in w for w in res["warnings"])
 
 
 def _bad_runs(tmp_path: Path) -> dict[str, list[str]]:

@@ -10,6 +10,8 @@ Estimators
     green_kubo, einstein, analyse_viscosity            shear viscosity
     analyse_diffusion, msd_diffusion, vacf_diffusion   self-diffusion
     mean_with_error                                    honest mean of any series
+Corrections (pure functions of results)
+    correct_diffusion, extrapolate_box_size            finite-size correction of D
 Errors
     InputError, RunTooShortError
 
@@ -28,6 +30,8 @@ from ._lazy import lazy_names
 __version__ = "0.1.0"
 
 _WHERE: dict[str, str] = {
+    "correct_diffusion": "corrections",
+    "extrapolate_box_size": "corrections",
     "DiffusionAnalysis": "diffusion",
     "analyse_diffusion": "diffusion",
     "msd_diffusion": "diffusion",
@@ -66,7 +70,9 @@ __all__ = [
     "__version__",
     "analyse_diffusion",
     "analyse_viscosity",
+    "correct_diffusion",
     "einstein",
+    "extrapolate_box_size",
     "get_unit_system",
     "green_kubo",
     "load_stress",
@@ -83,6 +89,7 @@ __getattr__, __dir__ = lazy_names(__name__, globals(), _WHERE, __all__)
 
 
 if TYPE_CHECKING:  # pragma: no cover - for type checkers and editors
+    from .corrections import correct_diffusion, extrapolate_box_size
     from .diffusion import DiffusionAnalysis, analyse_diffusion, msd_diffusion, vacf_diffusion
     from .errors import InputError, RunTooShortError
     from .estimate import Estimate

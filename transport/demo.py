@@ -262,6 +262,7 @@ def run_demo(
         echo(f"  {m.label}: Green–Kubo {gk.value:.2f} ± {gk.stderr:.2f} mPa s, "
              f"{dev:+.2f} mPa s ({dev / sc.experiment_mpas:+.0%}) from experiment")
     results["diffusion"] = _diffusion_step(outdir, rng, echo)
+    _report_step(outdir, echo)
     echo("")
     echo("caution: a transport coefficient is only as good as the potential and the sampling;")
     echo("thermostat coupling and the treatment of electrostatics bias it. Check against")
@@ -371,3 +372,23 @@ def _diffusion_step(outdir: Path, rng: np.random.Generator,
     )
     write_json(doc, outdir / "diffusion.json")
     return list(res.estimates)
+
+
+def _report_step(outdir: Path, echo: Callable[[str], None]) -> Path:
+    """Write the report of the whole scenario from the JSON results into ``outdir/report``.
+
+    The diffusion trajectory is taken as run with model A, so its finite-size correction
+    uses model A's viscosity (named together, as ``transport report --pair`` does).
+    Returns the path of the HTML document.
+    """
+    from .report.document import build_report, read_documents, write_report
+
+    visc = [outdir / f"{m.name}_viscosity.json" for m in SCENARIO.models]
+    diff = outdir / "diffusion.json"
+    docs = read_documents([*visc, diff])
+    report = build_report(docs, pairs=[(str(diff), str(visc[0]))],
+                          title=f"transport demo: {SCENARIO.liquid}")
+    html = write_report(report, outdir / "report")
+    echo("")
+    echo(f"report (HTML with figures, Markdown twin, merged JSON): {html}")
+    return html

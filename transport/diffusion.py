@@ -1,51 +1,54 @@
 """Self-diffusion from particle trajectories: Einstein (MSD) and Green–Kubo (VACF) estimators.
 
-MSD route (method ``msd_gls``). The mean-squared displacement of each species is averaged over
-particles and all time origins with FFTs (:func:`transport.stats.msd`), after the system's
-centre-of-mass drift is removed. The diffusive window is found from the local slope
+MSD route (method ``msd_wls``). The mean-squared displacement of each species is averaged
+over particles and all time origins with FFTs (:func:`transport.stats.msd`), after the
+system's centre-of-mass drift is removed. The diffusive window is found from the local slope
 ``alpha(t) = d log MSD / d log t``: it ends where fewer than three non-overlapping intervals of
 the lag fit in the run (lag <= (N+1)/4 for N steps; the long-lag tail, few origins) and starts
-at the first lag from which ``alpha`` stays within ``max(0.1, 3 sd)`` of 1 up to that end
-(``sd`` the statistical spread of ``alpha`` for a random walk with as many particles and
-frames), which excludes the ballistic start and the caging shoulder. ``MSD(t) = 6 D t + b`` is
-fitted there by generalized least squares with the covariance matrix of the MSD points [1]_,
-at lags spaced by half the window start (every lag for a random walk; for inertial motion
-this keeps the frame-level smoothness of the trajectories, which a random walk lacks, out of
-the fit).
+at the first lag from which ``alpha`` stays within ``max(0.1, 3 sd)`` of 1 over a factor 3 in
+lag (``sd`` the statistical spread of ``alpha`` for a random walk with as many particles and
+frames), which excludes the ballistic start and the caging shoulder, and where the slope of
+the MSD over one doubling of the lag agrees with the slope over the next within 2% (or 3
+model sd): ``alpha`` near 1 does not make an MSD ``6 D t + b`` linear when ``b`` is not
+small, and molecule centres still bend there.
 
-Covariance choice (documented per the design note): the analytic covariance of the
-time-averaged MSD of a Gaussian random walk without localisation noise [1]_, derived here in
-closed form (see :func:`msd_covariance`), with particles (and replicas) taken as independent.
-For a random walk the MSD points at lags n and m of one coordinate of one particle with
-``N + 1`` frames and step variance ``s^2`` have
+The estimate and its error bar come from independent time blocks [8]_: the run is cut into
+8 blocks (6 or 4 when the window does not fit), the window is cut at half a block if need
+be (never below twice its start), each block's MSD uses only its own frames, and
+``MSD(t) = 6 D t + b`` is fitted to the particle-weighted mean of the block MSDs by least
+squares weighted with the inverse model variance of each point, at evenly spaced lags. The
+standard error is the scatter of the block values (each block fitted the same way) about
+their weighted mean, over sqrt(blocks); the 95% interval is Student's t with blocks - 1 dof.
+Independent repeats see every correlation the data have (between MSD points, and between
+particles that move together in a periodic box or belong to one molecule), which a model of
+one MSD curve cannot. A run too short for four such blocks gets the model error below (times
+the Birge ratio when the fit's chi-square rejects the model [6]_ [7]_) and a warning.
+
+Covariance model (the weights, the model error and the model check): the analytic
+covariance of the time-averaged MSD of a Gaussian random walk without localisation noise
+[1]_, derived here in closed form (see :func:`msd_covariance`), with particles (and
+replicas) taken as independent. For a random walk the MSD points at lags n and m of one
+coordinate of one particle with ``N + 1`` frames and step variance ``s^2`` have
 
     Cov[M(n), M(m)] = 2 s^4 S(n, m) / ((N - n + 1)(N - m + 1)),
     S(n, m) = sum_{i,j} overlap(i, n; j, m)^2,
 
 the sum running over the origins of both lags and ``overlap`` the number of steps the two
 displacement windows share (Isserlis' theorem: Cov[A^2, B^2] = 2 Cov[A, B]^2 for zero-mean
-Gaussians). Its shape does not depend on D, so the GLS estimate needs no iteration; its
-scale ``s^2 = 2 D dt`` is evaluated at the fitted D. The fit's chi-square against this model
-is reported. When it rejects the model at the 5% level (the MSD scatters more than the
-random-walk covariance allows: particles that move together, non-Gaussian displacements, a
-window not yet quite linear), the standard error is multiplied by the Birge ratio
-``S = sqrt(chi^2 / dof)`` [6]_, the scale factor the Particle Data Group applies to
-inconsistent data [7]_; the factor is recorded. (Applied only on rejection: scaling every fit
-by ``max(1, S)`` would widen correct error bars by several per cent on average for short
-windows and over-cover; the test at 5% leaves correct fits alone 95% of the time.) A p-value
-far below 0.01 also attaches a warning. Estimating the covariance from particles instead
-would need many more particles than fit points and ignores the correlation between particles
-just the same.
+Gaussians). Its shape does not depend on D; its scale ``s^2 = 2 D dt`` is evaluated at the
+fitted D. Only its diagonal weights the fit: with the full covariance (generalized least
+squares, optimal if the model held [1]_) the fit becomes one of the MSD's increments and
+rests on the first two lags of the window, which on real liquids made the answer hang on
+where the window starts (see :func:`fit_msd`). The model error of the weighted fit is the
+sandwich with the full covariance (``stderr_model`` in the diagnostics); the GLS answer and
+the chi-square of its residuals against the model are reported as diagnostics.
 
-The 95% interval (:func:`msd_interval`) uses the normal quantile, not Student's t: no scale is
-estimated from the fit residuals (the covariance is a model whose scale is fixed by D), so the
-residual degrees of freedom say nothing about the error bar's own uncertainty. Because the
-standard error is proportional to D, the interval inverts ``|D_hat - D| <= z c D``
-(``c = stderr / D_hat``), ``[D_hat / (1 + z c), D_hat / (1 - z c)]``, instead of plugging
-``D_hat`` into the error bar: the symmetric ``D_hat +- z stderr`` is too short when ``D_hat``
-is low and under-covers once ``c`` reaches ~0.1 (measured on single random walks with
-``c = 0.19``: 0.929 symmetric, 0.945-0.950 inverted; with many particles, ``c`` of a few per
-cent, both give 0.95).
+The interval without time blocks (:func:`msd_interval`) uses the normal quantile, not
+Student's t: no scale is estimated from the fit residuals, so the residual degrees of freedom
+say nothing about the error bar's own uncertainty. Because the model error is proportional to
+D, it inverts ``|D_hat - D| <= z c D`` (``c = stderr / D_hat``),
+``[D_hat / (1 + z c), D_hat / (1 - z c)]``, instead of plugging ``D_hat`` into the error bar
+(measured on single random walks with ``c = 0.19``: 0.929 symmetric, 0.945-0.950 inverted).
 
 The MSD of a species (:func:`species_msd`) sums the power spectra of all its particles and
 coordinates before one inverse FFT (the transform is linear; only the particle average is
@@ -53,11 +56,12 @@ needed), working through blocks of particles in one reused zero-padded buffer.
 
 VACF route (method ``vacf``): ``D = (1/3) integral <v(0) . v(t)> dt`` (trapezoid rule) up to a
 cutoff twice the lag after which the normalised VACF stays below 0.01 for a further doubling of
-the lag; the error bar is the spread of the integral over independent time segments (each
-at least 10 cutoffs long), or over blocks of particles when the run holds fewer than four
-segments. Frames more than a small fraction of the velocity decorrelation time apart make the
-integral meaningless: when the VACF falls below 0.7 of its initial value within one frame the
-estimate is skipped (``vacf="auto"``) or carries a warning.
+the lag; the error bar is the spread of the integral over independent time segments (at
+least 10 cutoffs long, shortened to no less than two cutoffs to give 8 segments); blocks of
+particles, which share the collective motion of the box, are added only when the run holds
+fewer than four segments, with a warning. Frames more than a small fraction of the velocity
+decorrelation time apart make the integral meaningless: when the VACF falls below 0.7 of its
+initial value within one frame the estimate is skipped (``vacf="auto"``) or carries a warning.
 
 D is the value in the periodic box; the diagnostics record box lengths, temperature and group
 sizes for the Yeh–Hummer finite-size correction [3]_, which needs the shear viscosity.
@@ -81,6 +85,8 @@ References
    40, 207 (1932).
 .. [7] Particle Data Group, "Review of Particle Physics", Introduction, section on averaging
    measurements: the scale factor S (from memory).
+.. [8] H. Flyvbjerg and H. G. Petersen, "Error estimates on averages of correlated data",
+   J. Chem. Phys. 91, 461 (1989): means of independent blocks and their variance.
 """
 
 from __future__ import annotations
@@ -103,6 +109,7 @@ from .msd_fit import (
     MSDFit,
     _alpha_outside,
     _local_slope,
+    _wls_slope,
     diffusive_window,
     fit_msd,
     msd_covariance,
@@ -128,10 +135,13 @@ __all__ = [
     "vacf_diffusion",
 ]
 
-#: Most time blocks for the block check of the diffusion error bar, and the fewest for
-#: which it is made (dof = blocks - 1).
-BLOCKS_MAX = 16
+#: Numbers of independent time blocks tried for the MSD estimate (most first), and the
+#: fewest with which it is made (dof = blocks - 1).
+BLOCK_COUNTS = (8, 6, 4)
 BLOCKS_MIN = 4
+#: Inside a time block the fit window is cut at half the block if need be, but not below
+#: this factor in lag.
+BLOCK_WINDOW_MIN = 2.0
 #: Chunk of float64 values converted at a time (bounded memory for big trajectories).
 _CHUNK_VALUES = 1 << 23
 #: Bytes of the zero-padded float64 buffer of one block of particles in :func:`species_msd`
@@ -201,12 +211,12 @@ def species_msd(
 
 @dataclass(frozen=True)
 class DiffusionAnalysis:
-    """MSD (GLS) and VACF estimates per species from one analysis.
+    """MSD (weighted least squares, time blocks) and VACF estimates per species.
 
     Attributes
     ----------
     msd : tuple of Estimate
-        ``self_diffusion`` by ``msd_gls``, one per species.
+        ``self_diffusion`` by ``msd_wls``, one per species.
     vacf : tuple of Estimate
         ``self_diffusion`` by ``vacf``, one per species that had velocities sampled finely
         enough.
@@ -320,7 +330,7 @@ def msd_diffusion(
     max_lag: int | None = None,
     workers: int | None = None,
 ) -> tuple[Estimate, ...]:
-    """Self-diffusion per species from the MSD, fitted by generalized least squares.
+    """Self-diffusion per species from the MSD of independent time blocks (weighted fit).
 
     Parameters
     ----------
@@ -328,7 +338,8 @@ def msd_diffusion(
         One run, or independent replicas (same frame interval).
     fit_window : (float, float) or "auto"
         Fit range of lag times in internal units (s, or tau), or ``"auto"`` (local slope of
-        log MSD; see the module notes).
+        log MSD; see the module notes). The time blocks may cut its end at half a block
+        (with a warning when the range was given).
     remove_drift : bool
         Subtract the system's centre-of-mass drift before computing the MSD.
     max_lag : int, optional
@@ -339,10 +350,13 @@ def msd_diffusion(
     Returns
     -------
     tuple of Estimate
-        ``self_diffusion`` by ``msd_gls`` for each species, in 1e-9 m^2/s (or reduced).
-        ``window`` is the fit range in ps (or tau); ``n_independent`` the number of
-        particles. ``diagnostics`` hold the OLS answer with honest and naive errors, the
-        chi-square of the fit, the intercept, the box, temperature and group sizes.
+        ``self_diffusion`` by ``msd_wls`` for each species, in 1e-9 m^2/s (or reduced).
+        ``window`` is the fit range the estimate uses, in ps (or tau); ``n_independent``
+        the number of particles. ``diagnostics`` hold the time blocks (``block_count``,
+        ``block_length``, ``block_values``, ``block_stderrs``), the model error
+        (``stderr_model``) and the factor to the reported one, ``weight_span``, the
+        whole-run fit over the full window, the GLS and OLS answers, the chi-square of
+        the model check, the intercept, the box, temperature and group sizes.
         ``curves`` hold ``time``, ``msd``, ``msd_sd``, ``fit``, ``fit_sd``,
         ``slope_time`` and ``local_slope``.
 
@@ -354,6 +368,7 @@ def msd_diffusion(
     References
     ----------
     .. [1] Bullerjahn, von Bülow & Hummer, J. Chem. Phys. 153, 024116 (2020).
+    .. [2] Flyvbjerg & Petersen, J. Chem. Phys. 91, 461 (1989).
     """
     return analyse_diffusion(series, fit_window=fit_window, remove_drift=remove_drift,
                              vacf="no", max_lag=max_lag, workers=workers).msd
@@ -407,7 +422,7 @@ def analyse_diffusion(
     workers: int | None = None,
     msd: bool = True,
 ) -> DiffusionAnalysis:
-    """MSD (GLS) estimates per species and, where velocities allow, the VACF cross-check.
+    """MSD estimates per species and, where velocities allow, the VACF cross-check.
 
     Parameters
     ----------
@@ -550,46 +565,96 @@ def _msd_estimate(slist: list[PositionSeries], name: str,
         )
         raise err
     fit = fit_msd(mean, dt, (k0, k1), frames=frames, counts=counts)
-    block = _block_check(members, name, (k0, k1), dt, remove_drift, workers)
+    block = _time_blocks(members, name, (k0, k1), dt, remove_drift, workers)
     return _msd_result(fit, mean, time, dt, name, diag, curves, rule, u, warn, lf, block)
 
 
 @dataclass(frozen=True)
-class _BlockCheck:
-    """Scatter of independent time blocks against their model error bars."""
+class _TimeBlocks:
+    """The fit of the MSD of independent time blocks, and the scatter of the blocks."""
 
+    fit: MSDFit  # fit of the particle-weighted mean of the block MSDs
     values: np.ndarray  # D of each block (internal units)
     stderrs: np.ndarray  # model (random-walk) standard error of each block
+    weights: np.ndarray  # particles of each block (normalised to sum 1)
     block_frames: int
-    factor: float  # sqrt(chi^2 / dof) of the block values about their weighted mean
 
     @property
     def dof(self) -> int:
         return int(self.values.size - 1)
 
+    @property
+    def scatter_stderr(self) -> float:
+        """Standard error of the weighted mean of the block values, from their scatter."""
+        w, v = self.weights, self.values
+        mu = float(w @ v)
+        n = v.size
+        return math.sqrt(float(np.sum(w**2 * (v - mu) ** 2)) * n / (n - 1))
 
-def _block_check(members: list[PositionSeries], name: str, window: tuple[int, int],
-                 dt: float, remove_drift: bool, workers: int | None) -> _BlockCheck | None:
-    """Fit the same window in independent time blocks; compare their scatter with the model.
+    @property
+    def pairs_stderr(self) -> float:
+        """The same standard error from the means of consecutive pairs of blocks (the next
+        blocking level of Flyvbjerg & Petersen): larger than `scatter_stderr` beyond its
+        own noise when neighbouring blocks are correlated (blocks too short)."""
+        n = self.values.size // 2
+        if n < 2:
+            return float("nan")
+        w = self.weights[: 2 * n].reshape(n, 2)
+        v = self.values[: 2 * n].reshape(n, 2)
+        wp = w.sum(axis=1)
+        vp = (w * v).sum(axis=1) / wp
+        wp = wp / wp.sum()
+        mu = float(wp @ vp)
+        return math.sqrt(float(np.sum(wp**2 * (vp - mu) ** 2)) * n / (n - 1))
 
-    The random-walk covariance treats particles as independent; in a periodic liquid their
-    displacements are correlated by collective, momentum-conserving motion, which only
-    independent repeats show. Returns None when fewer than BLOCKS_MIN blocks fit.
+    @property
+    def chi2_factor(self) -> float:
+        """sqrt(chi^2/dof) of the block values about their weighted mean, model errors."""
+        e = self.stderrs
+        if not np.all(e > 0):
+            return float("nan")
+        w = 1.0 / e**2
+        mu = float(np.sum(w * self.values) / np.sum(w))
+        return math.sqrt(float(np.sum(w * (self.values - mu) ** 2)) / self.dof)
+
+
+def _block_plan(nmin: int, replicas: int, window: tuple[int, int]) -> tuple[int, int] | None:
+    """Frames per time block and the last lag of the fit in each block, or None.
+
+    The most blocks (of BLOCK_COUNTS) that hold the window, cut at half a block (the
+    default longest lag of a run) if need be, but not below BLOCK_WINDOW_MIN times its
+    start and three fit points; None when fewer than BLOCKS_MIN blocks allow that.
     """
     k0, k1 = window
-    nmin = min(s.n_frames for s in members)
-    # as many blocks as keep the window (or, in short runs, a window cut to a quarter of the
-    # block, no shorter than twice its start) inside each block with ORIGINS_PER_LAG origins
-    # per lag; the ratio of scatter to model error is what the blocks measure
-    for nb in (BLOCKS_MAX, 8, BLOCKS_MIN):
-        per_rep = max(1, -(-nb // len(members)))
+    for nb in BLOCK_COUNTS:
+        per_rep = max(1, -(-nb // replicas))
         length = nmin // per_rep
-        kb = min(k1, int((length - 1) // (ORIGINS_PER_LAG + 1)))
-        if kb >= max(2 * k0, k0 + 4):
-            break
-    else:
+        kb = min(k1, int((length - 1) // 2))
+        if kb >= max(min(math.ceil(BLOCK_WINDOW_MIN * k0), k1), k0 + 2):
+            return length, kb
+    return None
+
+
+def _time_blocks(members: list[PositionSeries], name: str, window: tuple[int, int],
+                 dt: float, remove_drift: bool, workers: int | None) -> _TimeBlocks | None:
+    """Fit the same window in independent time blocks and in their mean MSD.
+
+    Each block is a stretch of consecutive frames of one replica; its MSD uses only its own
+    frames, so blocks share no displacement and, once they are long compared with the
+    window, are independent repeats: their scatter holds every correlation the data have
+    (between MSD points, between particles moving collectively), which the random-walk
+    model of one MSD curve cannot see [8]_. Returns None when the run is too short for
+    BLOCKS_MIN blocks (see :func:`_block_plan`).
+    """
+    k0 = window[0]
+    plan = _block_plan(min(s.n_frames for s in members), len(members), window)
+    if plan is None:
         return None
-    vals, ses = [], []
+    length, kb = plan
+    # every block has the same lags and frames: one set of slope coefficients serves all
+    # (the same numbers fit_msd gives, without its GLS and OLS diagnostics)
+    lags, coef, var_shape = _wls_slope(k0, kb, length)
+    curves, vals, ses, cnt = [], [], [], []
     for s in members:
         idx = np.unique(s.species_indices(name))
         for j in range(s.n_frames // length):
@@ -597,28 +662,32 @@ def _block_check(members: list[PositionSeries], name: str, window: tuple[int, in
             shift = s.drift[sl] if (remove_drift and s.drift is not None) else None
             m = _fft_msd(s.positions[sl], max_lag=kb, particles=idx, shift=shift,
                          workers=workers)
-            f = fit_msd(m, dt, (k0, kb), frames=[length], counts=[float(idx.size)])
-            vals.append(f.diffusion)
-            ses.append(f.stderr / f.scale_factor)  # the model error, unscaled
+            dj = float(coef @ m[lags]) / (dt * 2 * _DIM)
+            curves.append(m)
+            vals.append(dj)
+            # model error: d s^4 var_shape / P with s^2 = 2 |D| dt, slope -> D: / (2 d dt)
+            ses.append(math.sqrt(_DIM * (2 * abs(dj) * dt) ** 2 * var_shape / idx.size)
+                       / (dt * 2 * _DIM))
+            cnt.append(float(idx.size))
     if len(vals) < BLOCKS_MIN:
         return None
-    v, e = np.array(vals), np.array(ses)
-    if not np.all(e > 0):
-        return None
-    w = 1.0 / e**2
-    mu = float(np.sum(w * v) / np.sum(w))
-    chi2 = float(np.sum(w * (v - mu) ** 2))
-    return _BlockCheck(v, e, length, math.sqrt(chi2 / (v.size - 1)))
+    w = np.array(cnt) / float(np.sum(cnt))
+    mean = w @ np.array(curves)
+    fit = fit_msd(mean, dt, (k0, kb), frames=[length] * len(cnt), counts=cnt)
+    return _TimeBlocks(fit, np.array(vals), np.array(ses), w, length)
 
 
-def _msd_result(fit: MSDFit, mean: np.ndarray, time: np.ndarray, dt: float, name: str,
+def _msd_result(whole: MSDFit, mean: np.ndarray, time: np.ndarray, dt: float, name: str,
                 diag: dict, curves: dict, rule: str, u: UnitSystem, warn: list[str], lf: float,
-                block: _BlockCheck | None = None) -> Estimate:
+                block: _TimeBlocks | None = None) -> Estimate:
+    """The Estimate: from the time blocks when the run holds them, else the whole run."""
     ds, ts = u.diffusion_scale, u.time_scale
+    fit = block.fit if block is not None else whole
     k0, k1 = int(fit.lags[0]), int(fit.lags[-1])
     frames, counts = diag["frames"], [float(c) for c in diag["particles_per_replica"]]
-    value, se = fit.diffusion, fit.stderr
-    # model standard deviation of every MSD point and band of the fitted line
+    value = fit.diffusion
+    model_se = fit.stderr / fit.scale_factor
+    # model standard deviation of every MSD point of the whole run, and band of the line
     lags_all = np.arange(1, mean.size)
     s2 = 2.0 * abs(value) * dt
     shape_diag = sum(p * msd_variance(lags_all, n) for n, p in zip(frames, counts,
@@ -626,50 +695,86 @@ def _msd_result(fit: MSDFit, mean: np.ndarray, time: np.ndarray, dt: float, name
     shape_diag = shape_diag / sum(counts) ** 2
     fit_line = 2 * _DIM * value * time + fit.intercept
     xb = np.column_stack([time, np.ones_like(time)])
-    fit_sd = np.sqrt(np.einsum("ij,jk,ik->i", xb, fit.cov_params, xb))
+    cov_params = fit.cov_params / fit.scale_factor**2
+    warn = list(warn)
+    p = fit.chi2_pvalue
+    if block is not None:
+        se = block.scatter_stderr
+        if np.isfinite(p) and p < 1e-3:
+            warn.append(
+                f"{name}: the MSD scatters much more than the random-walk covariance allows "
+                f"(chi^2 = {fit.chi2:.3g} for {fit.dof} degrees of freedom, p = {p:.2g}); the "
+                "error bar comes from independent time blocks")
+        if se > 1.5 * model_se:
+            warn.append(
+                f"{name}: {block.values.size} independent time blocks scatter "
+                f"{se / model_se:.2g}x more than the random-walk model error allows (the model "
+                "treats particles as independent); the error bar is from the blocks")
+        q = float(special.stdtrit(block.dof, 0.975))
+        lo, hi = value - q * se, value + q * se
+        interval_rule = f"Student t with {block.dof} dof (time blocks): value +- {q:.4g} stderr"
+        stderr_method = (
+            f"scatter of {block.values.size} independent time blocks of "
+            f"{block.block_frames * dt * ts:.4g} {u.time_unit}, each fitted over the same "
+            "window, about their particle-weighted mean (standard error of the mean)")
+    else:
+        se = fit.stderr
+        warn.append(
+            f"{name}: the run is too short for {BLOCKS_MIN} independent time blocks that hold "
+            "the fit window, so the error bar could not be checked against the data; it is "
+            "the random-walk model error, which on real liquids (particles moving together) "
+            "has been 1.5-4x too small: run longer or add replicas")
+        if np.isfinite(p) and p < 1e-3:
+            warn.append(
+                f"{name}: the MSD scatters much more than the random-walk covariance allows "
+                f"(chi^2 = {fit.chi2:.3g} for {fit.dof} degrees of freedom, p = {p:.2g}); the "
+                f"error bar was scaled by sqrt(chi^2/dof) = {fit.scale_factor:.3g}, but the "
+                "model may not hold (correlated particles or a non-diffusive window)")
+        elif fit.scale_factor > 1:
+            warn.append(
+                f"{name}: error bar scaled by sqrt(chi^2/dof) = {fit.scale_factor:.3g}: the MSD "
+                f"scatters more than the random-walk covariance allows (chi^2 = {fit.chi2:.3g} "
+                f"for {fit.dof} degrees of freedom, p = {p:.2g})")
+        (lo, hi), interval_rule = msd_interval(value, se)
+        stderr_method = (
+            "weighted least squares on the whole run, sandwich error with the model "
+            "covariance at the fitted D" + (
+                f", scaled by the Birge ratio sqrt(chi^2/dof) = {fit.scale_factor:.3g} "
+                f"(chi^2 p-value below {CHI2_SCALE_P:g})" if fit.scale_factor > 1 else ""))
+    if block is not None and rule == "given" and int(whole.lags[-1]) > k1:
+        warn.append(
+            f"{name}: the fit window was cut to {k0 * dt * ts:.4g}-{k1 * dt * ts:.4g} "
+            f"{u.time_unit}, half of each of the {block.values.size} independent time blocks "
+            f"that carry the error bar; the whole run over the window asked for gives "
+            f"{whole.diffusion * ds:.4g} (diagnostics: whole_run_value)")
+    if value <= 0:
+        warn.append(f"{name}: the fitted slope is not positive")
+    if interval_rule.startswith("symmetric"):
+        warn.append(f"{name}: the error bar is too large for the scale-aware interval; the "
+                    "symmetric normal interval is given")
+    factor = se / model_se if model_se > 0 else float("nan")
+    fit_sd = np.sqrt(np.einsum("ij,jk,ik->i", xb, cov_params, xb)) * factor
     curves = dict(curves)
     curves.update(fit=fit_line * lf**2, fit_sd=fit_sd * lf**2,
                   msd_sd=np.concatenate([[0.0], np.sqrt(_DIM * s2 * s2 * shape_diag)])
                   * lf**2)
-    p = fit.chi2_pvalue
-    warn = list(warn)
-    if np.isfinite(p) and p < 1e-3:
-        warn.append(
-            f"{name}: the MSD scatters much more than the random-walk covariance allows "
-            f"(chi^2 = {fit.chi2:.3g} for {fit.dof} degrees of freedom, p = {p:.2g}); the "
-            f"error bar was scaled by sqrt(chi^2/dof) = {fit.scale_factor:.3g}, but the "
-            "model may not hold (correlated particles or a non-diffusive window)")
-    elif fit.scale_factor > 1:
-        warn.append(
-            f"{name}: error bar scaled by sqrt(chi^2/dof) = {fit.scale_factor:.3g}: the MSD "
-            f"scatters more than the random-walk covariance allows (chi^2 = {fit.chi2:.3g} "
-            f"for {fit.dof} degrees of freedom, p = {p:.2g})")
-    if value <= 0:
-        warn.append(f"{name}: the fitted slope is not positive")
-    model_se = se / fit.scale_factor
-    block_factor = block.factor if block is not None else float("nan")
-    use_block = block is not None and block.factor > max(fit.scale_factor, 1.0)
-    if use_block:
-        se = model_se * block.factor
-        warn.append(
-            f"{name}: {block.values.size} independent time blocks scatter "
-            f"{block.factor:.2g}x more than the random-walk model error allows; the error bar "
-            "was widened by that factor (the model treats particles as independent)")
-    (lo, hi), interval_rule = msd_interval(value, se)
-    if use_block:
-        q = float(special.stdtrit(block.dof, 0.975))
-        lo, hi = min(lo, value - q * se), max(hi, value + q * se)
-        interval_rule += f"; at least Student t with {block.dof} dof (time blocks)"
-    if interval_rule.startswith("symmetric"):
-        warn.append(f"{name}: the error bar is too large for the scale-aware interval; the "
-                    "symmetric normal interval is given")
     lu = diag["length_unit"]
     d = dict(diag)
     d.update(
         fit_window=(k0 * dt * ts, k1 * dt * ts),
         window_rule=rule,
         fit_points=int(fit.lags.size),
+        weight_span=(fit.weight_span[0] * dt * ts, fit.weight_span[1] * dt * ts),
         alpha_outside_fraction=_alpha_outside(mean, (k0, k1), frames, counts),
+        fit_method="least squares weighted by the inverse model variance of each MSD "
+                   "point, evenly spaced lags" + (
+                       ", on the mean MSD of independent time blocks" if block else
+                       ", on the MSD of the whole run"),
+        covariance_model="analytic random-walk covariance of the MSD points (Bullerjahn, "
+                         "von Bülow & Hummer 2020), independent particles: weights and "
+                         "model error",
+        gls_value=fit.gls_diffusion * ds,
+        gls_stderr_model=fit.gls_stderr * ds,
         ols_value=fit.ols_diffusion * ds,
         ols_stderr=fit.ols_stderr * ds,
         ols_stderr_naive=fit.ols_stderr_naive * ds,
@@ -679,29 +784,25 @@ def _msd_result(fit: MSDFit, mean: np.ndarray, time: np.ndarray, dt: float, name
         chi2=fit.chi2,
         dof=fit.dof,
         chi2_pvalue=p,
-        covariance_model="analytic random-walk covariance of the MSD points (Bullerjahn, "
-                         "von Bülow & Hummer 2020), independent particles",
-        stderr_scale_factor=(block.factor if use_block else fit.scale_factor),
+        whole_run_value=whole.diffusion * ds,
+        whole_run_stderr_model=whole.stderr / whole.scale_factor * ds,
+        whole_run_window=(int(whole.lags[0]) * dt * ts, int(whole.lags[-1]) * dt * ts),
         stderr_model=model_se * ds,
+        stderr_scale_factor=factor,
         fit_scale_factor=fit.scale_factor,
-        block_scale_factor=block_factor,
+        block_scale_factor=float("nan") if block is None else block.chi2_factor,
         block_count=0 if block is None else int(block.values.size),
         block_length=float("nan") if block is None else block.block_frames * dt * ts,
         block_values=[] if block is None else [float(x) * ds for x in block.values],
+        block_stderr_pairs=float("nan") if block is None else block.pairs_stderr * ds,
         block_stderrs=[] if block is None else [float(x) * ds for x in block.stderrs],
-        stderr_method=(
-            f"model error times the scatter of {block.values.size} independent time blocks "
-            f"about their weighted mean, sqrt(chi^2/dof) = {block.factor:.3g}" if use_block
-            else "generalized least squares with the model covariance at the fitted D" + (
-                f", scaled by the Birge ratio sqrt(chi^2/dof) = {fit.scale_factor:.3g} "
-                f"(chi^2 p-value below {CHI2_SCALE_P:g})" if fit.scale_factor > 1 else "")),
+        stderr_method=stderr_method,
         interval_method=interval_rule,
     )
     return Estimate(
-        "self_diffusion", "msd_gls", value * ds, se * ds,
+        "self_diffusion", "msd_wls", value * ds, se * ds,
         (lo * ds, hi * ds), u.diffusion_unit,
         window=(k0 * dt * ts, k1 * dt * ts), window_unit=u.time_unit, group=name,
         n_independent=float(d["n_particles"]), diagnostics=d, curves=curves,
         warnings=tuple(dict.fromkeys(warn)),
     )
-

@@ -1,5 +1,5 @@
 """Einstein (MSD) fit on arrays: the random-walk covariance of MSD points, the diffusive
-window and the generalized-least-squares fit of ``MSD(t) = 2 d D t + b``.
+window and the weighted-least-squares fit of ``MSD(t) = 2 d D t + b``.
 
 Pure functions of arrays (no trajectories, no files); :mod:`transport.diffusion` applies
 them to species of a trajectory. The method, the covariance choice and the interval are
@@ -20,6 +20,7 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Literal
 
 import numpy as np
 from scipy import special
@@ -41,8 +42,14 @@ ALPHA_Z = 3.0
 WINDOW_SPAN = 3.0
 #: The fit window ends where the number of origins is at least this many times the lag.
 ORIGINS_PER_LAG = 3.0
-#: Most MSD points entering the GLS fit (log- and linearly spaced in the window).
+#: Most MSD points entering the fit (evenly spaced in the window).
 MAX_FIT_POINTS = 120
+#: The slope of the MSD over one doubling of the lag must agree with the slope over the next
+#: doubling within this fraction (or 3 model standard deviations) where the window starts.
+SLOPE_TOL = 0.02
+#: Fraction of the slope's weight (sum of |coefficients|) left out at each end of the
+#: reported span that carries the estimate.
+WEIGHT_TAIL = 0.05
 #: The GLS standard error is scaled by sqrt(chi^2/dof) when the chi-square p-value is below this.
 CHI2_SCALE_P = 0.05
 _DIM = 3
@@ -206,6 +213,8 @@ def diffusive_window(
     rule = (f"from the first lag after which |alpha - 1| <= max({ALPHA_TOL:g}, {ALPHA_Z:g} sd) "
             f"over a factor {WINDOW_SPAN:g} in lag, to the lag with {ORIGINS_PER_LAG:g}x as "
             "many origins")
+    rule += (f", where the MSD's slope over one doubling of the lag agrees with the next "
+             f"within max({SLOPE_TOL:g}, {ALPHA_Z:g} sd)")
     if lags.size == 0:
         return 0, k1, rule
     left = np.concatenate([[1], lags[:-1]])  # alpha at lags[j] uses msd from left[j] on
@@ -213,9 +222,36 @@ def diffusive_window(
     for j in np.flatnonzero(ok & (lags <= k1)):
         span_end = min(k1, WINDOW_SPAN * lags[j])
         inside = (lags >= lags[j]) & (lags <= span_end)
-        if np.all(ok[inside]):
+        if np.all(ok[inside]) and _slope_level(msd, int(left[j]), k1, frames, counts):
             return int(left[j]), k1, rule
     return 0, k1, rule
+
+
+def _slope_level(msd: np.ndarray, k: int, k1: int, frames: Sequence[int],
+                 counts: Sequence[float]) -> bool:
+    """Whether the MSD's slope over [k, 2k] agrees with its slope over [2k, min(4k, k1)].
+
+    A local slope alpha = d log MSD / d log t near 1 does not make the MSD linear: an MSD
+    ``6 D t + b`` has ``alpha = 1 - b / MSD``, and the MSD of molecule centres (b < 0, the
+    curve still bending up after the ballistic start) or of sites of a molecule (b > 0,
+    motion inside the molecule) reaches alpha within 0.1 of 1 while its slope still
+    changes by several per cent. The chords of two consecutive doublings of the lag must
+    agree within SLOPE_TOL, or within ALPHA_Z random-walk standard deviations of their
+    difference when the MSD is noisier than that.
+    """
+    k2, k4 = 2 * k, min(4 * k, k1)
+    if k4 <= k2 or k4 >= msd.size:
+        return True  # no room for a second doubling: the window is too short anyway
+    c1 = (msd[k2] - msd[k]) / k
+    c2 = (msd[k4] - msd[k2]) / (k4 - k2)
+    if not (np.isfinite(c1) and np.isfinite(c2) and c2 > 0):
+        return False
+    g = np.array([k, k2, k4])
+    shape = _combined_shape(g, frames, counts)
+    a = np.array([-1.0 / k, 1.0 / k + 1.0 / (k4 - k2), -1.0 / (k4 - k2)])
+    # chord of a walk: d s^2 per lag; variance of (c1 - c2): d s^4 a' shape a
+    rel_sd = math.sqrt(max(float(a @ shape @ a), 0.0) / _DIM)
+    return abs(c1 / c2 - 1.0) <= max(SLOPE_TOL, ALPHA_Z * rel_sd)
 
 
 def _alpha_outside(msd: np.ndarray, window: tuple[int, int], frames: Sequence[int],
@@ -230,42 +266,55 @@ def _alpha_outside(msd: np.ndarray, window: tuple[int, int], frames: Sequence[in
 
 
 def _fit_lags(k0: int, k1: int) -> np.ndarray:
-    """Lags of the fit: spaced by half the window start, at most MAX_FIT_POINTS of them.
+    """Lags of the fit: evenly spaced by at least half the window start, at most
+    MAX_FIT_POINTS of them, always including both ends.
 
-    Spacing the points by ``k0 / 2`` (where the motion is already diffusive) keeps the
-    frame-level fine structure of smooth (inertial) trajectories, which a random walk does
-    not have, out of the fit; for a random walk (``k0 = 1``) every lag is used.
+    Spacing the points by ``k0 / 2`` or more (where the motion is already diffusive) keeps
+    the frame-level fine structure of smooth (inertial) trajectories, which a random walk
+    does not have, out of the fit; for a random walk (``k0 = 1``) every lag is used. Even
+    spacing makes the diagonal weights the only thing that favours some lags over others.
     """
-    step = max(1, k0 // 2)
+    step = max(1, k0 // 2, -(-(k1 - k0) // (MAX_FIT_POINTS - 1)))
     lags = np.arange(k0, k1 + 1, step)
     if lags[-1] != k1:
         lags = np.append(lags, k1)
-    if lags.size > MAX_FIT_POINTS:
-        half = MAX_FIT_POINTS // 2
-        lg = np.round(np.geomspace(k0, k1, half) / step).astype(int) * step
-        ln = np.round(np.linspace(k0, k1, half) / step).astype(int) * step
-        lags = np.unique(np.clip(np.concatenate([lg, ln, [k0, k1]]), k0, k1))
     return lags
+
+
+def _weight_span(lags: np.ndarray, coef: np.ndarray) -> tuple[int, int]:
+    """Lags between which the slope's coefficients hold all but WEIGHT_TAIL of their
+    absolute sum at each end."""
+    c = np.cumsum(np.abs(coef))
+    c = c / c[-1]
+    i0 = int(np.searchsorted(c, WEIGHT_TAIL))
+    i1 = int(np.searchsorted(c, 1.0 - WEIGHT_TAIL))
+    return int(lags[min(i0, lags.size - 1)]), int(lags[min(i1, lags.size - 1)])
 
 
 @dataclass(frozen=True)
 class MSDFit:
-    """A GLS fit ``MSD(t) = 2 d D t + b`` with the random-walk covariance.
+    """A fit ``MSD(t) = 2 d D t + b`` over a window of lags (weighted least squares).
 
     All quantities in internal units (length^2, time, length^2/time).
 
     Attributes
     ----------
     diffusion, stderr : float
-        GLS estimate of D and its standard error (model covariance at the fitted D, times
-        `scale_factor`).
+        Estimate of D by least squares weighted with the inverse model variance of each
+        MSD point (diagonal of the random-walk covariance; or the full covariance when
+        ``weighting="model"``), and its standard error: the sandwich with the model
+        covariance at the fitted D, times `scale_factor`.
     intercept, intercept_stderr : float
         b and its standard error (length^2).
     ols_diffusion, ols_stderr, ols_stderr_naive : float
         Ordinary least squares on the same points; its standard error with the model
         covariance (honest) and with independent residuals (what a naive fit reports).
+    gls_diffusion, gls_stderr : float
+        Generalized least squares with the full model covariance on the same points and
+        its model standard error (unscaled): optimal if the random-walk model held [1]_, but
+        on real liquids it rests on the first two lags of the window (kept as a diagnostic).
     chi2 : float
-        Chi-square of the GLS residuals against the model covariance.
+        Chi-square of the GLS residuals against the model covariance (the model check).
     dof : int
         Fit points minus 2.
     scale_factor : float
@@ -276,6 +325,11 @@ class MSDFit:
         The lags (frames) used.
     cov_params : ndarray, shape (2, 2)
         Covariance of (slope, intercept).
+    weighting : str
+        ``"diagonal"`` or ``"model"``.
+    weight_span : (int, int)
+        Lags (frames) between which the slope's coefficients hold 90% of their absolute sum:
+        the part of the window that carries the estimate.
     """
 
     diffusion: float
@@ -290,6 +344,10 @@ class MSDFit:
     lags: np.ndarray
     cov_params: np.ndarray
     scale_factor: float = 1.0
+    gls_diffusion: float = float("nan")
+    gls_stderr: float = float("nan")
+    weighting: str = "diagonal"
+    weight_span: tuple[int, int] = (0, 0)
 
     @property
     def chi2_pvalue(self) -> float:
@@ -305,8 +363,9 @@ def fit_msd(
     *,
     frames: Sequence[int],
     counts: Sequence[float],
+    weighting: Literal["diagonal", "model"] = "diagonal",
 ) -> MSDFit:
-    """Generalized-least-squares fit of the MSD over a window of lags.
+    """Least-squares fit of the MSD over a window of lags, weighted by the model variance.
 
     Parameters
     ----------
@@ -318,15 +377,33 @@ def fit_msd(
         First and last lag (frames), ``1 <= k0 < k1 <= K``.
     frames, counts : sequences
         Frames and particles of each independent replica behind `msd`.
+    weighting : {"diagonal", "model"}
+        ``diagonal`` (default): weights ``1 / Var[MSD(k)]`` from the random-walk model
+        (weighted least squares; the points' correlations enter the error bar, not the
+        weights). ``model``: the full model covariance (generalized least squares [1]_).
 
     Returns
     -------
     MSDFit
 
+    Notes
+    -----
+    Why diagonal weights: the random-walk covariance makes neighbouring MSD points almost
+    perfectly correlated, so GLS with it becomes a fit to the increments of the MSD, and
+    the increments of the first lags have by far the smallest variance: on real liquids
+    the GLS slope equals ``(MSD(k0 + h) - MSD(k0)) / (2 d h dt)`` of the first two points
+    to many digits, so it hangs on the window start, where the MSD of molecules is still
+    bending. Diagonal weights use every point of the window; the estimate stays unbiased
+    whatever the covariance, and its error bar is the sandwich
+    ``(X'WX)^-1 X'W C W X (X'WX)^-1`` with the model covariance ``C`` (the time-block check
+    of :mod:`transport.diffusion` then widens it when the data scatter more than ``C``).
+
     References
     ----------
     .. [1] Bullerjahn, von Bülow & Hummer, J. Chem. Phys. 153, 024116 (2020).
     """
+    if weighting not in ("diagonal", "model"):
+        raise ValueError(f"weighting must be 'diagonal' or 'model', got {weighting!r}")
     k0, k1 = window
     lags = _fit_lags(int(k0), int(k1))
     t = lags * dt
@@ -339,15 +416,27 @@ def fit_msd(
     xs, ys = x / d[:, None], y / d
     sol = np.linalg.solve(corr, np.column_stack([xs, ys]))
     info = xs.T @ sol[:, :2]  # X' C^-1 X (shape units)
-    cov_shape = np.linalg.inv(info)
-    beta = cov_shape @ (xs.T @ sol[:, 2])
-    slope = float(beta[0])
-    diff = slope / (2 * _DIM)
+    gls_shape = np.linalg.inv(info)
+    beta_g = gls_shape @ (xs.T @ sol[:, 2])
+    # weighted least squares with the inverse model variances: beta = A y
+    a_w = np.linalg.solve(xs.T @ xs, xs.T) / d[None, :]
+    beta_w = a_w @ y
+    w_shape = a_w @ shape @ a_w.T
+    if weighting == "model":
+        beta, cov_shape, coef = beta_g, gls_shape, (gls_shape @ (xs.T @ np.linalg.solve(
+            corr, np.eye(lags.size))))[0] / d
+    else:
+        beta, cov_shape, coef = beta_w, w_shape, a_w[0]
+    diff = float(beta[0]) / (2 * _DIM)
     s2 = 2.0 * abs(diff) * dt  # step variance of one coordinate
     scale = _DIM * s2 * s2  # Cov[mean MSD] = d s^4 shape
     cov_b = scale * cov_shape
-    r = ys - xs @ beta
-    chi2 = float(r @ np.linalg.solve(corr, r) / scale) if scale > 0 else float("nan")
+    # the model check: chi-square of the GLS residuals against the model covariance, with
+    # the scale at the GLS slope
+    dg = float(beta_g[0]) / (2 * _DIM)
+    scale_g = _DIM * (2.0 * abs(dg) * dt) ** 2
+    r = ys - xs @ beta_g
+    chi2 = float(r @ np.linalg.solve(corr, r) / scale_g) if scale_g > 0 else float("nan")
     # OLS on the same points, with honest (model) and naive (iid) standard errors
     xtx_inv = np.linalg.inv(x.T @ x)
     b_ols = xtx_inv @ (x.T @ y)
@@ -372,7 +461,27 @@ def fit_msd(
         lags=lags,
         cov_params=cov_b,
         scale_factor=factor,
+        gls_diffusion=dg,
+        gls_stderr=float(np.sqrt(scale_g * gls_shape[0, 0])) / (2 * _DIM),
+        weighting=weighting,
+        weight_span=_weight_span(lags, coef),
     )
+
+
+def _wls_slope(k0: int, k1: int, n_frames: int) -> tuple[np.ndarray, np.ndarray, float]:
+    """Lags, slope coefficients and model variance shape of the default fit of one run.
+
+    For an MSD of ``P`` independent particles over ``n_frames`` frames, the diagonal-
+    weighted slope is ``coef @ msd[lags]`` (weights do not depend on ``P``) and its model
+    variance is ``d s^4 var_shape / P`` with ``s^2 = 2 |D| dt``: what :func:`fit_msd`
+    computes, without the GLS and OLS diagnostics (for many blocks of equal length).
+    """
+    lags = _fit_lags(int(k0), int(k1))
+    shape = _combined_shape(lags, [n_frames], [1.0])
+    d = np.sqrt(np.diag(shape))
+    x = np.column_stack([lags.astype(np.float64), np.ones(lags.size)]) / d[:, None]
+    coef = np.linalg.solve(x.T @ x, x.T)[0] / d  # slope per lag (frames)
+    return lags, coef, float(coef @ shape @ coef)
 
 
 def msd_interval(value: float, stderr: float, *, level: float = 0.95

@@ -28,8 +28,11 @@ VACF_LEVEL = 0.01
 VACF_MIN_FIRST = 0.7
 #: VACF: segments are at least this many cutoffs long.
 VACF_SEGMENT_FACTOR = 10
-#: VACF: target number of independent pieces (time segments x particle blocks).
-VACF_TARGET_PIECES = 20
+#: VACF: segments are shortened (to no less than two cutoffs) to give at least this many.
+VACF_TARGET_SEGMENTS = 8
+#: VACF: fewest independent time segments for the error bar (Student t, segments - 1 dof);
+#: below this, blocks of particles are added, with a warning.
+VACF_MIN_SEGMENTS = 4
 #: Chunk of float64 values converted at a time (bounded memory for big trajectories).
 _CHUNK_VALUES = 1 << 23
 _DIM = 3
@@ -135,7 +138,14 @@ def vacf_estimate(slist: list[PositionSeries], name: str, cutoff: float | str,
                 fix="choose a shorter cutoff")
     kc = max(kc, 1)
     shortest = min(s.n_frames for s in members)
+    total = sum(s.n_frames for s in members)
+    # independent pieces are time segments: at least VACF_SEGMENT_FACTOR cutoffs long, or
+    # shorter (down to two cutoffs) when that leaves fewer than VACF_TARGET_SEGMENTS.
+    # Blocks of particles are not independent (they share the collective motion of the
+    # box) and are used only when even that fails, with a warning.
     seg_len = min(max(VACF_SEGMENT_FACTOR * kc, 2 * kc + 2), shortest)
+    if sum(s.n_frames // seg_len for s in members) < VACF_TARGET_SEGMENTS:
+        seg_len = min(max(2 * kc + 2, total // VACF_TARGET_SEGMENTS), shortest)
     lag = min(2 * kc, seg_len - 1)
     if kc > lag:
         raise InputError(f"{name}: the VACF cutoff is longer than half the run",
@@ -143,10 +153,13 @@ def vacf_estimate(slist: list[PositionSeries], name: str, cutoff: float | str,
                          expected="a run several times longer than the VACF cutoff",
                          fix="choose a shorter VACF cutoff or run longer")
     n_seg = sum(s.n_frames // seg_len for s in members)
-    # independent pieces: time segments, each split into blocks of particles (particles
-    # are independent up to O(1/N) momentum-conservation correlations), about 20 in all
     n_part = [s.species_indices(name).size for s in members]
-    blocks = max(1, min(min(n_part), math.ceil(VACF_TARGET_PIECES / max(n_seg, 1))))
+    blocks = 1
+    if n_seg < VACF_MIN_SEGMENTS:
+        blocks = max(1, min(min(n_part), math.ceil(VACF_MIN_SEGMENTS / max(n_seg, 1))))
+        warn.append(f"{name}: the run holds only {n_seg} time segment(s) of two VACF cutoffs; "
+                    f"the error bar uses {blocks} blocks of particles, which share the "
+                    "collective motion of the box and may understate it: run longer")
     pieces, weights = [], []
     for s in members:
         if s.n_frames // seg_len == 0:
@@ -155,13 +168,13 @@ def vacf_estimate(slist: list[PositionSeries], name: str, cutoff: float | str,
             pieces.append(_species_vacf(s, part, seg_len=seg_len, max_lag=lag,
                                         remove_drift=remove_drift, workers=workers))
             weights.extend([part.size] * (s.n_frames // seg_len))
-    err_rule = (f"spread over {n_seg} time segment(s) of {seg_len} frames x {blocks} "
-                "block(s) of particles")
+    err_rule = (f"spread over {n_seg} independent time segment(s) of {seg_len} frames" + (
+        f" x {blocks} block(s) of particles" if blocks > 1 else ""))
     if len(weights) < 4:
         text = f"{name}: too few particles and too short a run for a VACF error bar"
         if force:
             raise RunTooShortError(text, path=members[0].source.path or None,
-                                   fix="run longer (at least 4 segments of 10 VACF cutoffs)")
+                                   fix="run longer (at least 4 segments of 2 VACF cutoffs)")
         return None, text + "; VACF cross-check not made"
     c = np.concatenate(pieces, axis=0)  # (pieces, lag + 1), sum over dims
     run = _trapezoid_running(c, dt) / _DIM

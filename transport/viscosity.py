@@ -82,6 +82,12 @@ WINDOW_C = 5.0
 #: The blocking level-off time replaces the autocorrelation window when it is this many
 #: times longer (separated time scales: a slow tail under fast oscillations).
 SLOW_TAIL_FACTOR = 2.0
+#: The slow stress relaxation is "unresolved" when the decorrelation time on the first
+#: eighth, quarter, half and the whole of the longest run grows as T^b with b at least this
+#: (a time set by the liquid stays put, b ~ 0; one set by the run length has b ~ 1).
+UNRESOLVED_EXPONENT = 0.5
+#: Fewest samples in an eighth of the run for the growth check to be made.
+GROWTH_MIN_SAMPLES = 4096
 _EIN_K0 = 3.0
 _EIN_K1 = 0.2
 
@@ -139,6 +145,20 @@ class _Prepared:
     skipped: tuple[float, ...]
     notes: tuple[str, ...]
     level_rule: str = "stress autocorrelation window"
+    #: decorrelation time on the first eighth, quarter, half and all of the longest run
+    #: (internal time units), or None when the run is too short for the check
+    level_growth: tuple[float, ...] | None = None
+
+    @property
+    def growth_exponent(self) -> float | None:
+        """b in t_block ~ T^b over the run (None without the check)."""
+        return None if self.level_growth is None else _growth_exponent(self.level_growth)
+
+    @property
+    def resolved(self) -> bool:
+        """False when the decorrelation time grows with the data (see `_growth_note`)."""
+        b = self.growth_exponent
+        return b is None or b < UNRESOLVED_EXPONENT
 
 
 def _as_list(series: StressSeries | Sequence[StressSeries]) -> list[StressSeries]:
@@ -187,7 +207,18 @@ def _level_off_time(
         return dt, "stress autocorrelation window", True
     m, _ = _first_window(acf / acf[0], WINDOW_C)
     t_sokal = (m or max_lag) * dt
-    nb = min(n, 1 << 22)
+    t_block, converged = _block_time(p, offset, weights, dt)
+    if t_block > SLOW_TAIL_FACTOR * t_sokal:
+        return t_block, "block averaging of the stress (slow tail)", converged
+    return t_sokal, "stress autocorrelation window", converged
+
+
+def _block_time(
+    p: Sequence[np.ndarray], offset: np.ndarray, weights: np.ndarray, dt: float
+) -> tuple[float, bool]:
+    """A quarter of the median blocking level-off length of the weighted traceless
+    components (internal time units), and whether most components converged."""
+    nb = min(p[0].shape[0], 1 << 22)
     sizes, conv = [], []
     for c in np.nonzero(weights > 0)[0]:
         # one traceless component from the rows it uses (three for a diagonal, one else),
@@ -196,11 +227,13 @@ def _level_off_time(
         res = block_average(comp - offset[c])
         sizes.append(res.block_size)
         conv.append(res.converged)
-    t_block = 0.25 * float(np.median(sizes)) * dt
-    converged = sum(conv) * 2 > len(conv)
-    if t_block > SLOW_TAIL_FACTOR * t_sokal:
-        return t_block, "block averaging of the stress (slow tail)", converged
-    return t_sokal, "stress autocorrelation window", converged
+    return 0.25 * float(np.median(sizes)) * dt, sum(conv) * 2 > len(conv)
+
+
+def _growth_exponent(times: Sequence[float]) -> float:
+    """Exponent b of t ~ T^b fitted to the times on 1/8, 1/4, 1/2 and all of a run."""
+    x = np.log(np.array([0.125, 0.25, 0.5, 1.0]))
+    return float(np.polyfit(x, np.log(np.asarray(times)), 1)[0])
 
 
 def _equilibration_start(pressure: np.ndarray) -> int:
@@ -355,6 +388,12 @@ def _prepare(
             "averaging found no uncorrelated level): the running integral may not have "
             "levelled off and the viscosity may be too small; run longer"
         )
+    n_long = trimmed[ilong][0].shape[0]
+    growth = None
+    if n_long // 8 >= GROWTH_MIN_SAMPLES:
+        growth = (*(
+            _level_off_time([row[: n_long // f] for row in trimmed[ilong]], offsets[ilong],
+                            weights, dt)[0] for f in (8, 4, 2)), t_level)
     lvl = max(1, int(round(t_level / dt)))
     min_len = int(math.ceil(SEGMENT_FACTOR * lvl))
     total = sum(a[0].shape[0] for a in trimmed)
@@ -400,6 +439,7 @@ def _prepare(
         skipped=tuple(skipped),
         notes=tuple(notes),
         level_rule=level_rule,
+        level_growth=growth,
     )
 
 
@@ -722,6 +762,8 @@ def analyse_viscosity(
                     n_pieces=n_pieces)
     common_warn = tuple(w for s in slist for w in s.warnings) + prep.notes
     common_warn += stress_sampling(prep, slist, weights)  # refuses a too coarse sampling
+    growth_note = _growth_note(prep, slist[0].units)
+    common_warn += (growth_note,) if growth_note else ()
     for s in slist:
         if s.temperature_source and "mean" in s.temperature_source:
             common_warn += (
@@ -745,6 +787,11 @@ def _common_diag(prep: _Prepared, slist: list[StressSeries], components: str) ->
         "segment_length": prep.segment_length * prep.dt * u.time_scale,
         "decorrelation_time": prep.t_level * u.time_scale,
         "decorrelation_rule": prep.level_rule,
+        "decorrelation_resolved": prep.resolved,
+        "decorrelation_growth_times": (
+            None if prep.level_growth is None
+            else [x * u.time_scale for x in prep.level_growth]),
+        "decorrelation_growth_exponent": prep.growth_exponent,
         "max_lag": prep.max_lag * prep.dt * u.time_scale,
         "skipped": [x * u.time_scale for x in prep.skipped],
         "temperature": [s.temperature for s in slist],
@@ -757,6 +804,32 @@ def _common_diag(prep: _Prepared, slist: list[StressSeries], components: str) ->
 def _interval(value: float, stderr: float, n: int) -> tuple[float, float]:
     q = float(stats.t.ppf(0.975, max(n - 1, 1)))
     return value - q * stderr, value + q * stderr
+
+
+def _growth_note(prep: _Prepared, u) -> str | None:
+    """A warning when the stress decorrelation time is set by the run length.
+
+    The decorrelation time in use (`_level_off_time`: Sokal's window, or the blocking
+    time when a slow tail makes it 2x longer) is measured on the first eighth, quarter,
+    half and the whole of the longest run and fitted as T^b. A time set by the liquid
+    stays put as data are added (b ~ 0: Sokal's window on atomic liquids); when b reaches
+    `UNRESOLVED_EXPONENT`, the time is set by the run length: block averaging keeps finding
+    correlation at the longest blocks the data allow (a slow, small stress tail: molecular
+    reorientation, structural relaxation), so the data cannot show where the running
+    integral levels off and the value may be a truncated integral. Measured: Lennard-Jones
+    logs b = 0.0-0.42 (one switch from Sokal to blocking); flexible n-hexane, 2 ns b = 0.82, 250 ps pieces b = 0.5-1.0.
+    """
+    if prep.resolved:
+        return None
+    times = ", ".join(f"{t * u.time_scale:.3g}" for t in prep.level_growth)  # type: ignore
+    return (
+        f"the stress decorrelation time grows with the data ({times} {u.time_unit} on "
+        f"the first eighth, quarter, half and all of the run, ~T^{prep.growth_exponent:.2f})"
+        ": the run does not resolve the slow stress "
+        "relaxation, so it cannot show that the running integral has levelled off and the "
+        "viscosity may be too small; run longer (or add replicas) until this time stops "
+        "growing"
+    )
 
 
 def _rising_note(integ: np.ndarray, k: int, prep: _Prepared, u) -> str | None:

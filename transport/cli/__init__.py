@@ -1,6 +1,7 @@
 """Command-line interface: parses options, calls the library, prints.
 
-One module per command (``viscosity``, ``diffusion``, ``average``, ``inspect``, ``demo``);
+One module per command (``viscosity``, ``diffusion``, ``average``, ``inspect``, ``demo``,
+``report``);
 the group and its failure handling in ``_group``, options and helpers shared by the commands
 in ``_shared``. Each command parses, calls the library and prints.
 
@@ -14,7 +15,7 @@ or that runs through an existing file, is refused before anything is read.
 from __future__ import annotations
 
 # Importing the command modules registers their commands on the group.
-from . import average, demo, diffusion, inspect, viscosity  # noqa: F401
+from . import average, demo, diffusion, inspect, report, viscosity  # noqa: F401
 from ._group import main
 
 __all__ = ["main"]

@@ -13,6 +13,7 @@ from ._shared import (
     check_plot_path,
     finish,
     json_option,
+    load_stress_files,
     parse_time,
     plot_option,
     quiet,
@@ -32,6 +33,33 @@ def _diffusion_window(value: str, scale: float) -> tuple[float, float] | str:
         raise click.BadParameter(f"expected 0 <= T0 < T1, got {value!r}",
                                  param_hint="--fit-window")
     return a / scale, b / scale
+
+
+def _parse_viscosity(value: str | None) -> tuple[float, float] | str | None:
+    """``auto``, ``VALUE`` or ``VALUE+-ERR`` (also ``VALUE±ERR``) -> (value, stderr)."""
+    import math
+    import re
+
+    if value is None or value == "auto":
+        return value
+    m = re.fullmatch(r"\s*([^+±\s][^±]*?)\s*(?:(?:\+-|\+/-|±)\s*(\S+))?\s*", value)
+    try:
+        if m is None:
+            raise ValueError
+        v = float(m.group(1))
+        e = float(m.group(2)) if m.group(2) is not None else 0.0
+    except ValueError:
+        raise click.BadParameter(
+            f"expected 'auto', VALUE or VALUE+-ERR (e.g. 0.855+-0.02), got {value!r}",
+            param_hint="--viscosity") from None
+    if not (math.isfinite(v) and math.isfinite(e)):
+        raise click.BadParameter(
+            f"expected 'auto', VALUE or VALUE+-ERR with finite numbers, got {value!r}",
+            param_hint="--viscosity")
+    if not (v > 0 and e >= 0):
+        raise click.BadParameter(f"expected a positive viscosity and an error >= 0, got "
+                                 f"{value!r}", param_hint="--viscosity")
+    return v, e
 
 
 @main.command()
@@ -76,6 +104,15 @@ def _diffusion_window(value: str, scale: float) -> tuple[float, float] | str:
               help="Remove the centre-of-mass drift of the whole system.")
 @click.option("--scratch", type=click.Path(file_okay=False), default=None,
               help="Folder for the scratch file used when positions exceed the memory.")
+@click.option("--viscosity", default=None,
+              help="Also report D corrected for the periodic box (Yeh–Hummer for a cube, "
+                   "the Oseen lattice sum for other cells) with this shear viscosity: "
+                   "'auto' (Green–Kubo from --stress of the same run) or VALUE[+-ERR] in "
+                   "mPa s (reduced for --units lj).")
+@click.option("--stress", "stress_files", multiple=True, type=click.Path(dir_okay=False),
+              help="Thermo log or table with the pressure tensor of the same run, for "
+                   "--viscosity auto (repeat for replicas); read with --units, --timestep "
+                   "and --temperature where the file does not say them.")
 @json_option
 @plot_option
 @click.pass_context
@@ -83,7 +120,8 @@ def diffusion(ctx: click.Context, topology: str, trajectories: tuple[str, ...], 
               group_by: str, unwrap: str, fit_window: str, skip: str, units: str | None,
               timestep: float | None, frame_interval: float | None,
               temperature: float | None, continuation: bool, vacf: str, remove_drift: bool,
-              scratch: str | None, json_path: str | None, plot_path: str | None) -> None:
+              scratch: str | None, viscosity: str | None, stress_files: tuple[str, ...],
+              json_path: str | None, plot_path: str | None) -> None:
     """Self-diffusion from TOPOLOGY and TRAJECTORIES (several files = replicas, or parts of
     one run with --continue), per species, with the MSD fitted by generalized least squares
     and the VACF as a cross-check."""
@@ -99,8 +137,16 @@ def diffusion(ctx: click.Context, topology: str, trajectories: tuple[str, ...], 
             get_unit_system(units)
         except ValueError as exc:
             raise click.BadParameter(str(exc), param_hint="--units") from None
-    check_outputs((topology, *trajectories), json=json_path, plot=plot_path)
+    eta_given = _parse_viscosity(viscosity)
+    if eta_given == "auto" and not stress_files:
+        raise click.BadParameter("'auto' needs the pressure tensor of the same run: give "
+                                 "--stress FILE", param_hint="--viscosity")
+    if stress_files and eta_given != "auto":
+        raise click.BadParameter("--stress is read only with --viscosity auto",
+                                 param_hint="--stress")
+    check_outputs((topology, *trajectories, *stress_files), json=json_path, plot=plot_path)
     check_distinct(trajectories)
+    check_distinct(stress_files)
     ts = 1.0 if units is not None and get_unit_system(units).reduced else 1e12
     window = _diffusion_window(fit_window, ts)
     skip_t = parse_time(skip, "--skip") or 0.0
@@ -115,7 +161,14 @@ def diffusion(ctx: click.Context, topology: str, trajectories: tuple[str, ...], 
     )
     result = analyse_diffusion(series, fit_window=window,  # type: ignore[arg-type]
                                remove_drift=remove_drift, vacf=vacf)  # type: ignore[arg-type]
-    est = result.estimates
+    est = list(result.estimates)
+    notes = list(result.notes)
+    stress_sources: list = []
+    if eta_given is not None:
+        est, extra_notes, stress_sources = _corrected(
+            ctx, est, eta_given, stress_files, units=units, timestep=timestep,
+            temperature=temperature)
+        notes.extend(extra_notes)
     n = len(trajectories)
     kind = ("consecutive parts of one run" if continuation else "independent replicas")
     title = f"self-diffusion from {n} trajectory file(s)" + (f" ({kind})" if n > 1 else "")
@@ -130,8 +183,44 @@ def diffusion(ctx: click.Context, topology: str, trajectories: tuple[str, ...], 
                 "fit_window": fit_window, "skip": skip, "units": series[0].units.name,
                 "timestep": timestep, "frame_interval": frame_interval,
                 "temperature": temperature, "continue": continuation, "vacf": vacf,
-                "remove_drift": remove_drift}
+                "remove_drift": remove_drift, "viscosity": viscosity,
+                "stress": list(stress_files)}
     finish(ctx, "diffusion", json_path=json_path, plot_path=plot_path, figure=figure,
-            inputs=[src for s in series for src in s.sources], settings=settings,
-            results=est, warnings=result.notes,
-            text=format_estimates(est, title=title, notes=result.notes))
+            inputs=[*(src for s in series for src in s.sources), *stress_sources],
+            settings=settings, results=est, warnings=notes,
+            text=format_estimates(est, title=title, notes=notes))
+
+
+def _corrected(ctx: click.Context, est: list, eta: tuple[float, float] | str,
+               stress_files: tuple[str, ...], *, units: str | None,
+               timestep: float | None, temperature: float | None) -> tuple[list, list, list]:
+    """The estimates with corrected D after each periodic-box one (and, for 'auto', the
+    Green–Kubo viscosity used), run-level notes, and the stress files read."""
+    from ..corrections import correct_each
+    from ..errors import InputError
+    from ..viscosity import analyse_viscosity
+
+    notes: list[str] = []
+    sources: list = []
+    visc_est: list = []
+    if eta == "auto":
+        runs = load_stress_files(ctx, stress_files, units=units, timestep=timestep,
+                                 temperature=temperature)
+        vres = analyse_viscosity(runs)
+        used: Any = vres.green_kubo
+        visc_est = list(vres.estimates)
+        sources = [r.source for r in runs]
+    else:
+        used = eta
+        if eta[1] == 0:
+            notes.append("the viscosity was given without an error: the finite-size "
+                         "correction's uncertainty is taken as zero")
+    try:
+        out = correct_each(est, used, temperature=temperature)
+    except ValueError as exc:
+        fix = ("give --temperature" if "temperature" in str(exc)
+               else "give the viscosity in the unit of the trajectory's results")
+        raise InputError(f"cannot correct D for the box size: {exc}",
+                         expected="the temperature, the box and a viscosity in matching "
+                                  "units", fix=fix) from None
+    return [*out, *visc_est], notes, sources

@@ -11,11 +11,17 @@ Layout (stable keys; later commands add their own top-level keys)::
       "notes":    ["...", ...],
       "results":  [{"quantity", "method", "value", "stderr", "interval95", "unit",
                     "group", "corrected", "window", "window_unit", "n_independent",
-                    "diagnostics", "warnings", "notes"}, ...]
+                    "diagnostics", "warnings", "notes"}, ...],
+      "curves":   [{"time": [...], ...} or null, ...]   (one per result, thinned)
     }
 
 ``warnings`` hold only cautions about the results (a pipeline can gate on an empty list);
 ``notes`` say what was done or assumed (:class:`transport.errors.Note`).
+
+``curves`` holds each estimate's plot curves thinned to at most ``MAX_CURVE_POINTS``
+points (the union of an even and a logarithmic grid of indices, so that both early lags and
+the tail keep their shape); arrays of one length share their indices. ``transport report``
+redraws the diagnostic figures from them without the raw files.
 """
 
 from __future__ import annotations
@@ -28,12 +34,42 @@ from collections.abc import Iterable, Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+
 from ..errors import Note
 from ..estimate import Estimate, _jsonable
 from ..series import Source
 
-__all__ = ["atomic_write_bytes", "build_document", "dumps", "folder_not_writable",
-           "write_json"]
+__all__ = ["MAX_CURVE_POINTS", "atomic_write_bytes", "build_document", "curves_record",
+           "dumps", "folder_not_writable", "write_json"]
+
+#: Largest number of points kept per curve in the JSON document.
+MAX_CURVE_POINTS = 600
+
+
+def _thin_indices(n: int, max_points: int) -> np.ndarray:
+    if n <= max_points:
+        return np.arange(n)
+    half = max_points // 2
+    lin = np.linspace(0, n - 1, half).round().astype(np.int64)
+    log = np.geomspace(1, n - 1, max_points - half).round().astype(np.int64)
+    return np.unique(np.concatenate([[0], lin, log, [n - 1]]))
+
+
+def curves_record(curves: Mapping[str, Any], *,
+                  max_points: int = MAX_CURVE_POINTS) -> dict[str, list] | None:
+    """The 1-D curves of an estimate thinned to at most about `max_points` points each.
+
+    Arrays of the same length are thinned with the same indices (they are plotted against
+    each other); non-finite values become null. None when there are no curves.
+    """
+    out: dict[str, list] = {}
+    for name, arr in curves.items():
+        a = np.asarray(arr)
+        if a.ndim != 1 or not np.issubdtype(a.dtype, np.number):
+            continue
+        out[name] = _jsonable(a[_thin_indices(a.size, max_points)])
+    return out or None
 
 
 def build_document(
@@ -84,6 +120,7 @@ def build_document(
         "warnings": [str(w) for w in all_warnings],
         "notes": [str(n) for n in all_notes],
         "results": [r.to_record() for r in results],
+        "curves": [curves_record(r.curves) for r in results],
     }
     if extra:
         for k, v in extra.items():
