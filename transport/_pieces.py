@@ -5,8 +5,7 @@ traceless components are checked and, when their mean differs significantly from
 offset; the time at which the stress correlation has decayed is found (Sokal's window, or
 Flyvbjerg–Petersen blocking when a slow tail lies under fast oscillations), and the data are
 cut into independent pieces (replicas, and segments of long runs) for the time
-decomposition of Zhang, Otani & Maginn (2015). Whether that time is resolved by the run
-(`growth_note`) is judged by measuring it again on shorter parts of the run.
+decomposition of Zhang, Otani & Maginn (2015).
 
 References
 ----------
@@ -57,12 +56,6 @@ WINDOW_C = 5.0
 #: The blocking level-off time replaces the autocorrelation window when it is this many
 #: times longer (separated time scales: a slow tail under fast oscillations).
 SLOW_TAIL_FACTOR = 2.0
-#: The slow stress relaxation is "unresolved" when the decorrelation time on the first
-#: eighth, quarter, half and the whole of the longest run grows as T^b with b at least this
-#: (a time set by the liquid stays put, b ~ 0; one set by the run length has b ~ 1).
-UNRESOLVED_EXPONENT = 0.5
-#: Fewest samples in an eighth of the run for the growth check to be made.
-GROWTH_MIN_SAMPLES = 4096
 
 
 def traceless_stress(pressure: np.ndarray) -> np.ndarray:
@@ -115,20 +108,6 @@ class _Prepared:
     skipped: tuple[float, ...]
     notes: tuple[str, ...]
     level_rule: str = "stress autocorrelation window"
-    #: decorrelation time on the first eighth, quarter, half and all of the longest run
-    #: (internal time units), or None when the run is too short for the check
-    level_growth: tuple[float, ...] | None = None
-
-    @property
-    def growth_exponent(self) -> float | None:
-        """b in t_block ~ T^b over the run (None without the check)."""
-        return None if self.level_growth is None else _growth_exponent(self.level_growth)
-
-    @property
-    def resolved(self) -> bool:
-        """False when the decorrelation time grows with the data (see `growth_note`)."""
-        b = self.growth_exponent
-        return b is None or b < UNRESOLVED_EXPONENT
 
 
 def _as_list(series: StressSeries | Sequence[StressSeries]) -> list[StressSeries]:
@@ -198,12 +177,6 @@ def _block_time(
         sizes.append(res.block_size)
         conv.append(res.converged)
     return 0.25 * float(np.median(sizes)) * dt, sum(conv) * 2 > len(conv)
-
-
-def _growth_exponent(times: Sequence[float]) -> float:
-    """Exponent b of t ~ T^b fitted to the times on 1/8, 1/4, 1/2 and all of a run."""
-    x = np.log(np.array([0.125, 0.25, 0.5, 1.0]))
-    return float(np.polyfit(x, np.log(np.asarray(times)), 1)[0])
 
 
 def _equilibration_start(pressure: np.ndarray) -> int:
@@ -358,12 +331,6 @@ def _prepare(
             "averaging found no uncorrelated level): the running integral may not have "
             "levelled off and the viscosity may be too small; run longer"
         )
-    n_long = trimmed[ilong][0].shape[0]
-    growth = None
-    if n_long // 8 >= GROWTH_MIN_SAMPLES:
-        growth = (*(
-            _level_off_time([row[: n_long // f] for row in trimmed[ilong]], offsets[ilong],
-                            weights, dt)[0] for f in (8, 4, 2)), t_level)
     lvl = max(1, int(round(t_level / dt)))
     min_len = int(math.ceil(SEGMENT_FACTOR * lvl))
     total = sum(a[0].shape[0] for a in trimmed)
@@ -409,7 +376,6 @@ def _prepare(
         skipped=tuple(skipped),
         notes=tuple(notes),
         level_rule=level_rule,
-        level_growth=growth,
     )
 
 
@@ -426,31 +392,4 @@ def _too_short(prep: _Prepared, series: list[StressSeries], what: str) -> RunToo
         extra_time=max(need - have, 0.0) * scale,
         time_unit=u.time_unit,
         path=series[-1].source.path or None,
-    )
-
-
-def growth_note(prep: _Prepared, u) -> str | None:
-    """A warning when the stress decorrelation time is set by the run length.
-
-    The decorrelation time in use (`_level_off_time`: Sokal's window, or the blocking
-    time when a slow tail makes it 2x longer) is measured on the first eighth, quarter,
-    half and the whole of the longest run and fitted as T^b. A time set by the liquid
-    stays put as data are added (b ~ 0: Sokal's window on atomic liquids); when b reaches
-    `UNRESOLVED_EXPONENT`, the time is set by the run length: block averaging keeps finding
-    correlation at the longest blocks the data allow (a slow, small stress tail: molecular
-    reorientation, structural relaxation), so the data cannot show where the running
-    integral levels off and the value may be a truncated integral. Measured: Lennard-Jones
-    logs b = 0.0-0.42 (one switch from Sokal to blocking); flexible n-hexane, 2 ns
-    b = 0.82, 250 ps pieces b = 0.5-1.0.
-    """
-    if prep.resolved:
-        return None
-    times = ", ".join(f"{t * u.time_scale:.3g}" for t in prep.level_growth)  # type: ignore
-    return (
-        f"the stress decorrelation time grows with the data ({times} {u.time_unit} on "
-        f"the first eighth, quarter, half and all of the run, ~T^{prep.growth_exponent:.2f})"
-        ": the run does not resolve the slow stress "
-        "relaxation, so it cannot show that the running integral has levelled off and the "
-        "viscosity may be too small; run longer (or add replicas) until this time stops "
-        "growing"
     )

@@ -46,7 +46,6 @@ from ._pieces import (
     MIN_PIECES,
     SEGMENT_FACTOR,
     SLOW_TAIL_FACTOR,
-    UNRESOLVED_EXPONENT,
     Components,
     _as_list,
     _Piece,
@@ -54,7 +53,6 @@ from ._pieces import (
     _Prepared,
     _too_short,
     _weights,
-    growth_note,
     traceless_stress,
 )
 from .errors import InputError
@@ -77,7 +75,6 @@ __all__ = [
     "MIN_PIECES",
     "SEGMENT_FACTOR",
     "SLOW_TAIL_FACTOR",
-    "UNRESOLVED_EXPONENT",
     "ViscosityAnalysis",
     "analyse_viscosity",
     "einstein",
@@ -252,8 +249,6 @@ def analyse_viscosity(
     prep = _prepare(slist, components=components, skip=skip, max_lag=max_lag,
                     n_pieces=n_pieces)
     common_warn = tuple(w for s in slist for w in s.warnings) + prep.notes
-    unresolved = growth_note(prep, slist[0].units)
-    common_warn += (unresolved,) if unresolved else ()
     for s in slist:
         if s.temperature_source and "mean" in s.temperature_source:
             common_warn += (
@@ -277,11 +272,6 @@ def _common_diag(prep: _Prepared, slist: list[StressSeries], components: str) ->
         "segment_length": prep.segment_length * prep.dt * u.time_scale,
         "decorrelation_time": prep.t_level * u.time_scale,
         "decorrelation_rule": prep.level_rule,
-        "decorrelation_resolved": prep.resolved,
-        "decorrelation_growth_times": (
-            None if prep.level_growth is None
-            else [x * u.time_scale for x in prep.level_growth]),
-        "decorrelation_growth_exponent": prep.growth_exponent,
         "max_lag": prep.max_lag * prep.dt * u.time_scale,
         "skipped": [x * u.time_scale for x in prep.skipped],
         "temperature": [s.temperature for s in slist],
