@@ -18,7 +18,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-import transport.viscosity as tv
+import transport._pieces as tp
 from transport.io import load_stress
 from transport.series import StressSeries
 from transport.viscosity import analyse_viscosity
@@ -81,7 +81,7 @@ def test_control_bond_vibration_time_scale_fails(series, analysis, monkeypatch):
     # control: without the slow-tail rule the automatic value is the old, truncated one
     # (measured 0.159 +- 0.007, 0.69 of the new value, many of its own errors away), and the
     # still-rising check flags it
-    monkeypatch.setattr(tv, "SLOW_TAIL_FACTOR", 1e9)
+    monkeypatch.setattr(tp, "SLOW_TAIL_FACTOR", 1e9)
     gk = analyse_viscosity(series).green_kubo
     assert gk.value < 0.8 * analysis.green_kubo.value
     assert analysis.green_kubo.value - gk.value > 5 * gk.stderr

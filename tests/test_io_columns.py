@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from conftest import examples
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
@@ -70,7 +71,7 @@ def _header(draw, extras=tuple(_EXTRA)):
     return names, order
 
 
-@settings(max_examples=200, deadline=None)
+@settings(max_examples=examples(200), deadline=None)
 @given(_header())
 def test_mapping_finds_every_component_in_any_spelling_and_order(case):
     names, order = case
@@ -84,7 +85,7 @@ def test_mapping_finds_every_component_in_any_spelling_and_order(case):
 _MEANINGLESS = tuple(x for x in _EXTRA if canonical_name(x) is None)
 
 
-@settings(max_examples=25, deadline=None)
+@settings(max_examples=examples(25), deadline=None)
 @given(case=_header(_MEANINGLESS), seed=st.integers(0, 2**32 - 1))
 def test_mapped_columns_carry_the_right_values_end_to_end(tmp_path_factory, case, seed):
     """Write a CSV with shuffled, oddly spelled columns; the reader must put each column's

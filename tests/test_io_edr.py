@@ -1,4 +1,9 @@
-"""Energy files (.edr) against pyedr's own reading of the same files.
+"""Energy files (.edr) against GROMACS' own tables of them, and against pyedr.
+
+The reference outside the reading library: pyedr ships, beside its test .edr files, the
+.xvg tables GROMACS' `gmx energy` wrote from them (test_energy_file_matches_the_xvg_...).
+The comparison with pyedr's reading (the library the reader uses) checks that nothing is
+lost or reordered on the way, bit for bit.
 
 Files: MDAnalysisTests' test.edr (4 frames with the 9-component pressure tensor, volume and
 temperature) and the test files shipped with pyedr (blocks.edr: 11 frames; double.edr: 201
@@ -102,3 +107,46 @@ def test_damaged_energy_files(tmp_path):
     junk.write_bytes(b"\xff\xff\x26\xfd" + bytes(range(256)) * 4)
     with pytest.raises(InputError, match="cannot be read as an energy file"):
         read_table(junk)
+
+
+def read_xvg(path: Path) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+    """Columns of a GROMACS ``.xvg`` table (written by ``gmx energy``, not by pyedr), by
+    legend, as (values, half a unit of the last printed digit)."""
+    names, rows, halves = ["Time"], [], []
+    for line in path.read_text().splitlines():
+        if line.startswith("@") and " legend \"" in line and line.split()[1].startswith("s"):
+            names.append(line.split('"')[1])
+        elif line.strip() and not line.startswith(("#", "@")):
+            tok = line.split()
+            rows.append([float(x) for x in tok])
+            halves.append([0.5 * 10.0 ** -len(x.partition(".")[2]) for x in tok])
+    vals, half = np.array(rows).T, np.array(halves).T
+    return {n: (vals[i], half[i]) for i, n in enumerate(names)}
+
+
+@pytest.mark.parametrize("name", ["1.edr", "1_d.edr", "4.edr"])
+def test_energy_file_matches_the_xvg_gromacs_wrote(name):
+    # Reference outside pyedr: pyedr ships, beside each test .edr, the .xvg table that
+    # GROMACS' own `gmx energy` wrote from it. Tolerance: half a unit of the last printed
+    # digit (6 decimals, or 12 for double-precision files) plus float32 storage of
+    # single-precision files (relative 6e-8).
+    edr = pyedr_file(name)
+    ref = read_xvg(pyedr_file(name.replace(".edr", ".xvg")))
+    t = read_table(edr)
+    shared = [k for k in ref if k in t.columns]
+    tensor = {k.split(" (")[0]: k for k in shared if k.startswith("Pres-")}
+    assert len(shared) >= 20 and len(tensor) == 9 and "Time" in shared, shared
+    for k in shared:
+        v, half = ref[k]
+        assert t.columns[k].shape == v.shape, k
+        np.testing.assert_allclose(t.columns[k], v, rtol=6e-8, atol=half.max() * 1.0001,
+                                   err_msg=k)
+    s = load_stress(edr, volume=27.0, temperature=300.0)
+    for i, (a, b) in enumerate(PAIRS):
+        va, half = ref[tensor[a]]
+        expect = va if b is None else (va + ref[tensor[b]][0]) / 2
+        tol = half.max() * 1e5 * 1.0001  # printed bar -> Pa
+        np.testing.assert_allclose(s.pressure[i], expect * 1e5, rtol=6e-8, atol=tol)
+    times = ref["Time"][0]
+    assert s.dt == pytest.approx((times[-1] - times[0]) / (times.size - 1) * 1e-12,
+                                 rel=1e-6)  # 1e-6 ps printed over the whole span

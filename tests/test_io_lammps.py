@@ -16,6 +16,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import committed, examples
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
@@ -261,7 +262,7 @@ def test_non_number_inside_a_row_is_an_error_with_its_line(tmp_path):
     assert exc.value.line == k + 1
 
 
-@settings(max_examples=20, deadline=None)
+@settings(max_examples=examples(20), deadline=None)
 @given(chunk=st.integers(16, 5000), seed=st.integers(0, 2**32 - 1))
 def test_chunk_boundaries_do_not_change_the_result(tmp_path_factory, chunk, seed):
     """Blocks, warnings and headers that straddle the scanner's chunks give the same table
@@ -504,9 +505,8 @@ def blocks_by_hand(path: Path) -> list[tuple[list[str], np.ndarray]]:
 
 
 def need(path: Path) -> Path:
-    if not path.exists():
-        pytest.skip(f"{path} not generated yet (see its folder's README)")
-    return path
+    """A committed log: missing is a failure (conftest.committed), not a skip."""
+    return committed(path)
 
 
 def test_real_log_two_runs_in_real_units():
@@ -558,10 +558,7 @@ def test_real_log_compute_pressure_in_metal_units():
 
 
 def test_real_lj_viscosity_log_production_block():
-    cands = sorted((DATA / "lj_viscosity").glob("lj_visc_rep*.log.gz"))
-    if not cands:
-        pytest.skip("tests/data/lj_viscosity logs not generated yet")
-    p = cands[0]
+    p = committed(DATA / "lj_viscosity" / "lj_visc_rep1.log.gz")
     names, prod = blocks_by_hand(p)[-1]
     s = load_stress(p, temperature=0.722)
     t = read_table(p)

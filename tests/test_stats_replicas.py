@@ -50,10 +50,21 @@ def test_bootstrap_is_seeded_and_matches_the_ideal_standard_error():
 
 
 def test_bootstrap_median_statistic():
+    # Exact ideal bootstrap of the median of x = 1..11 (n = 11, median = 6th of 11 draws):
+    # P(median* <= j) = P(at least 6 of 11 draws <= j) = binom.sf(5, 11, j/11) (order
+    # statistics of a resample; Efron & Tibshirani 1993, from memory). Its 2.5% and 97.5%
+    # quantiles are 3 (P(<= 2) = 0.007, P(<= 3) = 0.051) and 9 (P(<= 8) = 0.949,
+    # P(<= 9) = 0.993): far enough from the cut points that 2000 resamples find them
+    # (the count at or below 3 is ~100 +- 10 against the 50 needed).
     x = np.arange(1.0, 12.0)
-    res = bootstrap(x, np.median, n_resamples=500, rng=np.random.default_rng(3))
+    res = bootstrap(x, np.median, n_resamples=2000, rng=np.random.default_rng(3))
     assert res.value == 6.0
-    assert 1.0 <= res.interval[0] <= 6.0 <= res.interval[1] <= 11.0
+    assert res.interval == (3.0, 9.0)
+    j = np.arange(1, 12)
+    pmf = np.diff(np.r_[0.0, stats.binom.sf(5, 11, j / 11)])
+    ideal_sd = np.sqrt(np.sum(pmf * (j - np.sum(pmf * j)) ** 2))
+    # Monte Carlo error of an SD from B draws ~1/sqrt(2B) = 1.6%: 5% is 3 of those
+    assert res.stderr == pytest.approx(ideal_sd, rel=0.05)
 
 
 def _est(value, stderr):

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from conftest import examples
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from numpy.testing import assert_allclose
@@ -16,7 +17,7 @@ def _split(x, cuts):
     return np.split(x, sorted(set(cuts)), axis=-1)
 
 
-@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@settings(max_examples=examples(60), deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(
     n=st.integers(min_value=2, max_value=1500),
     max_lag_frac=st.floats(min_value=0.0, max_value=1.0),

@@ -13,7 +13,6 @@ import pytest
 from transport.errors import RunTooShortError
 from transport.series import StressSeries
 from transport.synthetic import OUStressModel
-from transport.units import UNIT_SYSTEMS
 from transport.viscosity import analyse_viscosity, einstein, green_kubo, traceless_stress
 
 V, KT, ETA = 1000.0, 1.0, 3.0
@@ -100,10 +99,13 @@ def test_constant_pressure_shift_does_not_change_viscosity():
     assert b.stderr == pytest.approx(a.stderr, rel=1e-4)
 
 
-def test_unit_rescaling_gives_same_physical_viscosity():
-    # The same physical data expressed in 'real' units (atm, fs, Angstrom^3) and in SI
-    # must give the same viscosity in mPa s (unit factors: SI/BIPM, exact).
-    real = UNIT_SYSTEMS["real"]
+def test_unit_rescaling_gives_same_physical_viscosity(tmp_path):
+    # The same physical data written as a 'real'-units table (atm, fs, Angstrom^3) and read
+    # back through the reader must give the viscosity of the SI series in mPa s. The file
+    # is written with the SI definitions, not the project's factors: 1 atm = 101325 Pa,
+    # 1 Angstrom = 1e-10 m, 1 fs = 1e-15 s (SI Brochure, exact).
+    from transport.io import load_stress
+
     rng = np.random.default_rng(5)
     t_k = 300.0
     kT = 1.380649e-23 * t_k
@@ -112,12 +114,20 @@ def test_unit_rescaling_gives_same_physical_viscosity():
     dt = 5e-15
     p_si = m.sample(60_000, dt, rng)
     si = StressSeries(p_si, dt, vol, t_k, "si")
-    # what a reader would build from a 'real' log: converted to SI at the door
-    from_real = StressSeries((p_si / real.pressure) * real.pressure, (dt / real.time) * real.time,
-                             (vol / real.volume) * real.volume, t_k, "real")
+    f = tmp_path / "real.csv"
+    steps = np.arange(p_si.shape[1], dtype=float)
+    np.savetxt(f, np.c_[steps, (p_si / 101325.0).T, np.full(steps.size, vol / 1e-30)],
+               delimiter=",", header="step,pxx,pyy,pzz,pxy,pxz,pyz,vol", comments="",
+               fmt="%.17g")
+    from_real = load_stress(f, units="real", timestep=dt / 1e-15, temperature=t_k)
+    # the reader's conversion is exact to double rounding (17 printed digits)
+    np.testing.assert_allclose(from_real.pressure, p_si, rtol=1e-14, atol=0)
+    assert from_real.dt == pytest.approx(dt, rel=1e-15)
+    assert from_real.mean_volume == pytest.approx(vol, rel=1e-15)
     a = green_kubo(si, skip=None)
     b = green_kubo(from_real, skip=None)
     assert a.unit == b.unit == "mPa s"
+    # equal up to those roundings, amplified by the nonlinear fit
     assert b.value == pytest.approx(a.value, rel=1e-6)
     assert abs(a.value - 2.0) < 4 * a.stderr  # 2 mPa s set above
     assert a.window_unit == "ps"

@@ -14,7 +14,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-import transport.viscosity as tv
+import transport._pieces as tp
 from transport.series import StressSeries
 from transport.synthetic import OUStressModel
 from transport.viscosity import analyse_viscosity
@@ -67,7 +67,7 @@ def test_slow_tail_sets_the_time_scales():
 def test_control_the_old_rule_fails(monkeypatch):
     # control: with the slow-tail detection switched off the automatic analysis lands far
     # below the truth with a tight error bar (the failure this rule fixes)
-    monkeypatch.setattr(tv, "SLOW_TAIL_FACTOR", 1e9)
+    monkeypatch.setattr(tp, "SLOW_TAIL_FACTOR", 1e9)
     eta = MODEL.viscosity(V, KT)
     gk = analyse_viscosity(_run(3)).green_kubo
     assert gk.value < 0.5 * eta

@@ -66,6 +66,7 @@ for _ab in _PAIRS:
         _ALIASES[_prefix + _ab] = "p" + _ab
 
 _STRIP = re.compile(r"[\s_\-.\[\]()]+")
+_UNIT_SUFFIX = re.compile(r"\s+\([A-Za-z/^0-9 .]*\)$")
 
 
 def _normalise(name: str) -> str:
@@ -93,10 +94,14 @@ def canonical_name(name: str) -> str | None:
     ('pxy', 'volume', 'step')
     >>> canonical_name("E_pair") is None
     True
+    >>> canonical_name("Pres-XY (bar)"), canonical_name("Pressure (bar)")
+    ('pxy', 'press')
     """
     text = name.strip()
     if text[:2].lower() == "v_":
         text = text[2:]
+    # older energy files name terms with their unit: "Pres-XX (bar)", "Pressure (bar)"
+    text = _UNIT_SUFFIX.sub("", text) or text
     return _ALIASES.get(_normalise(text))
 
 
