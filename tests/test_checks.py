@@ -14,6 +14,7 @@ from types import SimpleNamespace
 import numpy as np
 import pytest
 
+from transport._pieces import _WEIGHTS_ALL
 from transport.checks import (
     STRESS_MIN_FIRST,
     STRESS_WARN_FIRST,
@@ -23,7 +24,7 @@ from transport.checks import (
 from transport.errors import InputError, RunTooShortError
 from transport.estimate import Estimate
 from transport.io import load_stress
-from transport.viscosity import _WEIGHTS_ALL, analyse_viscosity
+from transport.viscosity import analyse_viscosity
 
 DATA = Path(__file__).parent / "data"
 LJ = DATA / "lj_viscosity" / "lj_visc_rep1.log.gz"
