@@ -252,12 +252,7 @@ def analyse_viscosity(
                     n_pieces=n_pieces)
     common_warn = tuple(w for s in slist for w in s.warnings) + prep.notes
     common_warn += stress_sampling(prep, slist, weights)  # refuses a too coarse sampling
-    for s in slist:
-        if s.temperature_source and "mean" in s.temperature_source:
-            common_warn += (
-                f"{s.source.path or 'series'}: temperature is the {s.temperature_source}; "
-                "pass --temperature with the set point to avoid its fluctuation bias",
-            )
+    # a temperature taken from the file's mean is already a warning of the reader
     gk = ei = None
     if method in ("green-kubo", "both"):
         gk = _green_kubo(prep, slist, weights, cutoff, sigma_fraction, components, common_warn)
