@@ -28,6 +28,7 @@ from types import SimpleNamespace
 import numpy as np
 import pytest
 from click.testing import CliRunner
+from scipy import signal
 
 from transport.cli import main
 
@@ -43,7 +44,12 @@ def _rows(n: int, *, seed: int = 0, start: int = 0, every: int = 10,
           ncols: int = len(COLS)) -> list[str]:
     """Rows of the production run: step, temperature, six pressures (bar), volume."""
     rng = np.random.default_rng(seed)
-    vals = np.column_stack([300.0 + rng.normal(size=n), rng.normal(0.0, 100.0, (n, 6)),
+    # the pressures are a moving average of three white-noise rows (correlation 2/3, 1/3,
+    # 0 at lags 1, 2, 3), so that the stress is resolved by the sampling (white noise is
+    # refused as sampled too coarsely) and decorrelates within a few rows
+    noise = rng.normal(0.0, 100.0 / np.sqrt(3.0), (n + 2, 6))
+    press = signal.lfilter([1.0, 1.0, 1.0], [1.0], noise, axis=0)[2:]
+    vals = np.column_stack([300.0 + rng.normal(size=n), press,
                             np.full(n, 8000.0)])[:, : ncols - 1]
     return [f"{start + every * i:10d}   " + " ".join(f"{v:<14.8g}" for v in row) + " \n"
             for i, row in enumerate(vals)]
@@ -55,7 +61,7 @@ def _set(rows: list[str], i: int, col: int, token: str) -> None:
     rows[i] = "   ".join(toks) + " \n"
 
 
-def make_log(path, *, n: int = 400, rows: list[str] | None = None, units: str | None = "metal",
+def make_log(path, *, n: int = 1000, rows: list[str] | None = None, units: str | None = "metal",
              timestep: str | None = "0.002", cols: list[str] = COLS, end: str = "Loop time "
              "of 1.0 on 1 procs for 4000 steps with 256 atoms\n", seed: int = 0):
     """An invented engine log: an equilibration run without the pressure tensor, then the
@@ -301,10 +307,12 @@ def _c_duplicate_step(d):
     return [p], [], ANALYSE, f"dup.log:{hl + 201}:", "repeated"
 
 
-def _tensor_rows(n=400):
+def _tensor_rows(n=1000):
     rng = np.random.default_rng(2)
-    return [f"{i * 0.01:.2f}," + ",".join(f"{v:.6g}" for v in rng.normal(size=6)) + ",1000"
-            for i in range(n)]
+    # correlated over a few rows, as in _rows (white noise is refused as too coarse)
+    press = signal.lfilter([1.0, 1.0, 1.0], [1.0], rng.normal(size=(n + 2, 6)), axis=0)[2:]
+    return [f"{i * 0.01:.2f}," + ",".join(f"{v:.6g}" for v in row) + ",1000"
+            for i, row in enumerate(press)]
 
 
 def _c_csv_duplicate_names(d):
@@ -605,7 +613,7 @@ def test_crlf_line_endings_give_the_same_results(tmp_path):
     q.write_bytes(p.read_bytes().replace(b"\n", b"\r\n"))
     a, b = _viscosity_json(p), _viscosity_json(q)
     assert a["results"][0]["value"] == b["results"][0]["value"]
-    assert a["inputs"][0]["rows"] == b["inputs"][0]["rows"] == 400
+    assert a["inputs"][0]["rows"] == b["inputs"][0]["rows"] == 1000
     a, b = _average_json(p)["results"][0], _average_json(q)["results"][0]
     assert (a["value"], a["stderr"]) == (b["value"], b["stderr"])
     # a CRLF table (comma- and tab-separated) too
@@ -620,9 +628,9 @@ def test_crlf_line_endings_give_the_same_results(tmp_path):
 
 
 def test_log_cut_inside_its_last_line_works_with_a_warning(tmp_path):
-    rows = _rows(401)
-    whole, _ = make_log(tmp_path / "whole.log", rows=rows[:400], end="")
-    cut, _ = make_log(tmp_path / "cut.log", rows=[*rows[:400], rows[400][:25]], end="")
+    rows = _rows(1001)
+    whole, _ = make_log(tmp_path / "whole.log", rows=rows[:1000], end="")
+    cut, _ = make_log(tmp_path / "cut.log", rows=[*rows[:1000], rows[1000][:25]], end="")
     a, b = _viscosity_json(whole), _viscosity_json(cut)
     assert a["results"][0]["value"] == b["results"][0]["value"]
     assert any("incomplete" in w for w in b["warnings"])

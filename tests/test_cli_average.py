@@ -159,8 +159,11 @@ def test_real_engine_log(tmp_path):
                 str(out)])
     assert res.exit_code == 0, res.output
     temp, press = json.loads(out.read_text())["results"]
-    assert temp["unit"] == "reduced" and press["unit"] == "eps/sigma^3"
+    assert temp["unit"] == "reduced (lj)" and press["unit"] == "eps/sigma^3"
     assert temp["window_unit"] == "tau"
+    # issue 11: every printed value has a unit; TotEng of an lj run is reduced too
+    res = _run(["average", str(log), "--column", "TotEng"])
+    assert res.exit_code == 0 and "reduced (lj)" in res.stdout
     # NVE run started at the canonical mean energy of T* = 0.722 (README): the mean
     # temperature of this finite system lies within 1% of it (common practice: the NVE
     # temperature of 864 atoms fluctuates by ~sqrt(2/(3N)) ~ 3% per sample, and a single

@@ -230,7 +230,7 @@ def test_gls_beats_ols_and_naive_ols_error_is_too_small():
     # chi-square of the GLS residuals is consistent with its degrees of freedom
     assert 0.001 < d["chi2_pvalue"] < 0.999
     assert e.quantity == "self_diffusion" and e.method == "msd_wls" and e.group == "all"
-    assert e.unit == "reduced" and e.window_unit == "tau"
+    assert e.unit == "reduced (lj)" and e.window_unit == "tau"
     assert e.n_independent == 50
     assert d["box_lengths"] == pytest.approx([10.0, 10.0, 10.0])
 

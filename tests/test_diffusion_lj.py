@@ -72,7 +72,7 @@ def test_reads_the_lammps_files(dcd_series, dump_series):
 def test_self_diffusion_matches_meier_laesecke_kabelac(dcd_series, dump_series):
     res = analyse_diffusion(dcd_series)
     (e,) = res.msd
-    assert e.unit == "reduced" and e.window_unit == "tau"
+    assert e.unit == "reduced (lj)" and e.window_unit == "tau"
     lo, hi = e.interval
     widen = PUBLISHED_REL_UNCERTAINTY * D_PUBLISHED
     assert lo - widen <= D_PUBLISHED <= hi + widen, (e.value, e.interval)

@@ -76,7 +76,7 @@ def test_energy_file_without_volume_needs_one():
     ref = reference(path)
     with pytest.raises(InputError, match=r"no volume.*pass --volume \(in nm\^3\)"):
         load_stress(path)
-    s = load_stress(path, volume=27.0, temperature=300.0)
+    s = load_stress(path, volume=27.0, temperature=470.0)  # its column's mean: 471.3 K
     assert s.n == len(ref["Time"]) == 201
     assert s.volume == pytest.approx(27.0e-27, rel=1e-15)
 

@@ -26,7 +26,9 @@ def test_column_by_canonical_name_with_unit_and_time_axis(tmp_path):
     assert col == "Press"
     np.testing.assert_allclose(x, [1.0 + i for i in range(20)])
     assert column_unit(table, "Press") == "bar"  # metal units: pressure in bar
-    assert column_unit(table, "Density") == ""  # no unit known for an unmapped column
+    # LAMMPS `units metal` prints mass density in g/cm^3 (LAMMPS units documentation)
+    assert column_unit(table, "Density") == "g/cm^3"
+    assert column_unit(table, "Whatever") == ""  # no unit known for an unmapped column
     dt, t0, unit = even_time_axis(table)
     assert (dt, t0, unit) == (pytest.approx(0.5), 0.0, "ps")  # metal time unit: ps
 

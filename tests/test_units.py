@@ -80,7 +80,7 @@ def test_reduced_lj_units_stay_reduced():
     assert u.reduced
     assert (u.pressure, u.time, u.length, u.volume) == (1.0, 1.0, 1.0, 1.0)
     assert u.boltzmann == 1.0  # k_B = 1 in reduced units (common practice)
-    assert u.viscosity_unit == "reduced" and u.viscosity_scale == 1.0
+    assert u.viscosity_unit == "reduced (lj)" and u.viscosity_scale == 1.0
 
 
 def test_reported_units_for_si_systems():

@@ -70,7 +70,7 @@ def test_green_kubo_and_einstein_agree_and_recover_truth():
         assert est.interval[0] < est.value < est.interval[1]
         assert abs(est.value - ETA) < 4 * est.stderr
         assert est.stderr < 0.1 * ETA  # 200 independent correlation times: a few per cent
-        assert est.unit == "reduced"
+        assert est.unit == "reduced (lj)"
         assert est.quantity == "shear_viscosity"
     assert g.method == "green_kubo" and e.method == "einstein"
     assert g.window[1] > 0 and g.diagnostics["cutoff"] == pytest.approx(g.window[1])

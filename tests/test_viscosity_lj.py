@@ -53,7 +53,7 @@ def test_published_viscosity_inside_interval(analysis):
         # published uncertainty (+-0.04, Ferrario et al. 1991)
         assert lo - ETA_FERRARIO_ERR <= ETA_MEIER <= hi + ETA_FERRARIO_ERR, est
         assert lo - ETA_FERRARIO_ERR <= ETA_FERRARIO <= hi + ETA_FERRARIO_ERR, est
-        assert est.unit == "reduced"
+        assert est.unit == "reduced (lj)"
     # Size of the error bars, measured 2026-12-05 on these files: Green–Kubo 0.0271,
     # Einstein 0.0392 of the value. Each rests on 20 independent pieces (jackknife / piece
     # spread, 19 dof), so its own relative sd is ~1/sqrt(2 x 19) = 0.16; the band is a

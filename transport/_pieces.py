@@ -26,7 +26,7 @@ from typing import Literal
 
 import numpy as np
 
-from .errors import InputError, RunTooShortError
+from .errors import InputError, Note, RunTooShortError
 from .series import StressSeries
 from .stats import block_average, detect_equilibration, weighted_autocorrelation
 from .stats.autocorr import _first_window
@@ -315,11 +315,10 @@ def _prepare(
         if np.ndim(s.volume) != 0:
             v = s.volume[start:]
             if np.std(v) > 1e-3 * np.mean(v):
-                notes.append(
+                notes.append(Note(
                     f"{s.source.path or 'series'}: the volume fluctuates "
                     f"({np.std(v) / np.mean(v):.2%} rms); the mean volume is used "
-                    "(Green–Kubo is exact at constant volume)"
-                )
+                    "(Green–Kubo is exact at constant volume)"))
 
     tscale, tunit = series[0].units.time_scale, series[0].units.time_unit
     ilong = max(range(len(trimmed)), key=lambda i: trimmed[i][0].shape[0])
@@ -351,21 +350,19 @@ def _prepare(
             pieces.append(_Piece(tuple(row[j * seg_len:(j + 1) * seg_len] for row in p),
                                  off, pref))
     if len(series) == 1 or any(a[0].shape[0] >= 2 * seg_len for a in trimmed):
-        notes.append(
+        notes.append(Note(
             f"{len(pieces)} independent pieces: {len(series)} replica(s) split into "
             f"segments of {seg_len} samples, {seg_len / lvl:.0f}x the time at which the "
             f"stress correlation has decayed ({t_level * tscale:.3g} {tunit}, from the "
-            f"{level_rule})"
-        )
+            f"{level_rule})"))
     shortest = min((pc.stress[0].shape[0] for pc in pieces), default=0)
     if max_lag is None:
         lag = min(shortest // 2, 50 * lvl) if shortest else 0
     else:
         lag = int(round(max_lag / dt))
         if shortest and lag > shortest // 2:
-            notes.append(
-                f"max lag reduced from {lag} to {shortest // 2} samples (half a segment)"
-            )
+            notes.append(Note(
+                f"max lag reduced from {lag} to {shortest // 2} samples (half a segment)"))
             lag = shortest // 2
     return _Prepared(
         pieces=tuple(pieces),

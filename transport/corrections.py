@@ -58,7 +58,7 @@ import numpy as np
 from scipy import special
 
 from .estimate import Estimate
-from .units import BOLTZMANN
+from .units import BOLTZMANN, REDUCED_LABEL, is_reduced_unit
 
 __all__ = [
     "XI_CUBIC",
@@ -289,7 +289,7 @@ def _is_cubic(h: np.ndarray) -> bool:
 
 def _scales(diffusion_unit: str, viscosity_unit: str, length_unit: str) -> tuple[float, float]:
     """(k_B, factor) with correction[D unit] = factor * k_B T / (eta[unit] * L[unit])."""
-    reduced = {diffusion_unit == "reduced", viscosity_unit == "reduced",
+    reduced = {is_reduced_unit(diffusion_unit), is_reduced_unit(viscosity_unit),
                length_unit == "sigma"}
     if reduced == {True}:
         return 1.0, 1.0
@@ -346,7 +346,7 @@ def correct_diffusion(diffusion: Estimate, viscosity: Estimate | tuple[float, fl
         eta_from = viscosity.method
     else:
         eta, eta_se = (float(x) for x in viscosity)
-        eta_unit = "reduced" if diffusion.unit == "reduced" else "mPa s"
+        eta_unit = REDUCED_LABEL if is_reduced_unit(diffusion.unit) else "mPa s"
         eta_from = "given"
     if not (math.isfinite(eta) and eta > 0 and math.isfinite(eta_se) and eta_se >= 0):
         raise ValueError(f"viscosity must be positive with a finite stderr >= 0, got "
@@ -524,7 +524,7 @@ def extrapolate_box_size(results: Sequence[Estimate], *,
     if len(lus) != 1:
         raise ValueError(f"boxes in different length units: {sorted(lus)}")
     length_unit = lus.pop()
-    eta_unit = "reduced" if unit == "reduced" else "mPa s"
+    eta_unit = REDUCED_LABEL if is_reduced_unit(unit) else "mPa s"
     kb, factor = _scales(unit, eta_unit, length_unit)
     warn: list[str] = []
     temps = [r.diagnostics.get("temperature") for r in results]

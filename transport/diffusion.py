@@ -100,7 +100,8 @@ import numpy as np
 import scipy.fft as sfft
 from scipy import special
 
-from .errors import InputError, RunTooShortError
+from .checks import check_diffusion_result
+from .errors import InputError, Note, RunTooShortError
 from .estimate import Estimate
 from .msd_fit import (
     CHI2_SCALE_P,
@@ -476,7 +477,7 @@ def analyse_diffusion(
                                  path=slist[0].source.path or None,
                                  expected="velocities in every frame",
                                  fix="write velocities, or drop the VACF estimate")
-            notes.append("no velocities in the trajectory: VACF cross-check not made")
+            notes.append(Note("no velocities in the trajectory: VACF cross-check not made"))
         else:
             for name in names:
                 members = [s for s in slist if name in s.species_names]
@@ -487,7 +488,8 @@ def analyse_diffusion(
                     vacf_est.append(est)
                 if note:
                     notes.append(note)
-    return DiffusionAnalysis(tuple(msd_est), tuple(vacf_est), tuple(dict.fromkeys(notes)))
+    return check_diffusion_result(  # too few fit points or an interval <= 0: refused
+        DiffusionAnalysis(tuple(msd_est), tuple(vacf_est), tuple(dict.fromkeys(notes))), slist)
 
 
 def _msd_estimate(slist: list[PositionSeries], name: str,

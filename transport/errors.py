@@ -4,7 +4,25 @@ from __future__ import annotations
 
 from typing import Any
 
-__all__ = ["InputError", "RunTooShortError"]
+__all__ = ["InputError", "Note", "RunTooShortError"]
+
+
+class Note(str):
+    """A message that says what was done or assumed, not a caution about the result.
+
+    Producers put notes among the messages they return (``Estimate.warnings``, a series'
+    warnings) wrapped in this type; :class:`~transport.Estimate` moves them to its
+    ``notes``, and the JSON document lists them under ``notes``, so that its ``warnings``
+    hold only warnings (a pipeline can gate on an empty list). A plain ``str`` is a
+    warning. Formatting a note (f-strings, ``+``) gives a plain ``str``: wrap the final text.
+
+    Examples
+    --------
+    >>> isinstance(Note("3 independent pieces"), str)
+    True
+    """
+
+    __slots__ = ()
 
 
 class InputError(ValueError):

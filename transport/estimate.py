@@ -70,7 +70,10 @@ class Estimate:
     curves : Mapping
         Named 1-D arrays for plots (read-only mapping; arrays are not copied).
     warnings : tuple of str
-        Cautions the user must see beside the value.
+        Cautions the user must see beside the value (doubts about the result).
+    notes : tuple of str
+        What was done or assumed (information, not a caution). Messages of type
+        :class:`~transport.errors.Note` given among `warnings` are moved here.
     """
 
     quantity: str
@@ -87,6 +90,7 @@ class Estimate:
     diagnostics: Mapping[str, Any] = field(default_factory=dict)
     curves: Mapping[str, np.ndarray] = field(default_factory=dict)
     warnings: tuple[str, ...] = ()
+    notes: tuple[str, ...] = ()
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "value", float(self.value))
@@ -98,7 +102,12 @@ class Estimate:
             object.__setattr__(self, "window", (float(a), float(b)))
         object.__setattr__(self, "diagnostics", _frozen_mapping(self.diagnostics))
         object.__setattr__(self, "curves", _frozen_mapping(self.curves))
-        object.__setattr__(self, "warnings", tuple(self.warnings))
+        from .errors import Note
+
+        moved = tuple(w for w in self.warnings if isinstance(w, Note))
+        object.__setattr__(self, "warnings",
+                           tuple(w for w in self.warnings if not isinstance(w, Note)))
+        object.__setattr__(self, "notes", tuple(dict.fromkeys((*self.notes, *moved))))
 
     def scaled(self, factor: float, unit: str) -> Estimate:
         """Return a copy with value, stderr and interval multiplied by `factor` (> 0)."""
@@ -117,6 +126,10 @@ class Estimate:
         """Return a copy with `extra` warnings appended."""
         return replace(self, warnings=self.warnings + tuple(extra))
 
+    def with_notes(self, *extra: str) -> Estimate:
+        """Return a copy with `extra` notes appended."""
+        return replace(self, notes=self.notes + tuple(extra))
+
     def to_record(self) -> dict[str, Any]:
         """The JSON record of this estimate (the common ``results`` entry; no curves)."""
 
@@ -134,4 +147,5 @@ class Estimate:
             "n_independent": _jsonable(self.n_independent),
             "diagnostics": _jsonable(dict(self.diagnostics)),
             "warnings": list(self.warnings),
+            "notes": list(self.notes),
         }

@@ -98,7 +98,7 @@ class UnitSystem:
     @property
     def viscosity_unit(self) -> str:
         """Unit label for reported viscosity."""
-        return "reduced" if self.reduced else "mPa s"
+        return REDUCED_LABEL if self.reduced else "mPa s"
 
     @property
     def viscosity_scale(self) -> float:
@@ -108,7 +108,7 @@ class UnitSystem:
     @property
     def diffusion_unit(self) -> str:
         """Unit label for reported self-diffusion."""
-        return "reduced" if self.reduced else "1e-9 m^2/s"
+        return REDUCED_LABEL if self.reduced else "1e-9 m^2/s"
 
     @property
     def diffusion_scale(self) -> float:
@@ -124,6 +124,18 @@ class UnitSystem:
     def time_scale(self) -> float:
         """Factor from internal time (s, or reduced) to the reported time unit."""
         return 1.0 if self.reduced else 1e12
+
+
+#: Unit label of results in reduced Lennard-Jones units.
+REDUCED_LABEL = "reduced (lj)"
+#: Labels that mean reduced units (results saved before the label named the system said
+#: "reduced").
+REDUCED_LABELS = frozenset({REDUCED_LABEL, "reduced"})
+
+
+def is_reduced_unit(label: str) -> bool:
+    """True if a result's unit label means reduced Lennard-Jones units."""
+    return label in REDUCED_LABELS
 
 
 _SI = dict(pressure=1.0, time=1.0, length=1.0, energy=1.0, mass=1.0)

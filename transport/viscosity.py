@@ -55,6 +55,7 @@ from ._pieces import (
     _weights,
     traceless_stress,
 )
+from .checks import check_replicas, check_viscosity_result, stress_sampling
 from .errors import InputError
 from .estimate import Estimate
 from .series import StressSeries
@@ -246,21 +247,18 @@ def analyse_viscosity(
         raise ValueError(f"sigma_fraction must lie in (0, 1), got {sigma_fraction!r}")
     slist = _as_list(series)
     weights = _weights(components)
+    check_replicas(slist)  # units before sampling intervals (checks.py)
     prep = _prepare(slist, components=components, skip=skip, max_lag=max_lag,
                     n_pieces=n_pieces)
     common_warn = tuple(w for s in slist for w in s.warnings) + prep.notes
-    for s in slist:
-        if s.temperature_source and "mean" in s.temperature_source:
-            common_warn += (
-                f"{s.source.path or 'series'}: temperature is the {s.temperature_source}; "
-                "pass --temperature with the set point to avoid its fluctuation bias",
-            )
+    common_warn += stress_sampling(prep, slist, weights)  # refuses a too coarse sampling
+    # a temperature taken from the file's mean is already a warning of the reader
     gk = ei = None
     if method in ("green-kubo", "both"):
         gk = _green_kubo(prep, slist, weights, cutoff, sigma_fraction, components, common_warn)
     if method in ("einstein", "both"):
         ei = _einstein(prep, slist, weights, fit_window, components, common_warn)
-    return ViscosityAnalysis(gk, ei)
+    return check_viscosity_result(ViscosityAnalysis(gk, ei), slist)  # no interval <= 0
 
 
 def _common_diag(prep: _Prepared, slist: list[StressSeries], components: str) -> dict:

@@ -60,7 +60,14 @@ class _Group(click.Group):
             if debug or isinstance(exc, (_UsageFailure, _NoArgsIsHelp)):
                 raise
             raise _UsageFailure(exc.format_message(), exc.ctx) from None
-        except (click.ClickException, click.exceptions.Exit, click.Abort, KeyboardInterrupt):
+        except KeyboardInterrupt:
+            if debug:
+                raise
+            # outputs are written only after the computation, with Ctrl-C held off
+            # (cli/_shared.finish): interrupted here means nothing was written
+            click.echo("transport: interrupted; nothing was written", err=True)
+            ctx.exit(130)
+        except (click.ClickException, click.exceptions.Exit, click.Abort):
             raise
         except MemoryError:
             if debug:

@@ -7,8 +7,9 @@ or that runs through an existing file, is refused before anything is read.
 
 from __future__ import annotations
 
+import contextlib
 import math
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from typing import Any
 
 import click
@@ -104,17 +105,13 @@ def check_outputs(inputs: tuple[str, ...], **outputs: str | None) -> None:
             raise click.BadParameter(f"{out!r} is also given to {seen[target]}",
                                      param_hint=hint)
         seen[target] = hint
-        parent = target.parent
-        while not parent.exists() and parent != parent.parent:
-            parent = parent.parent
-        if not parent.is_dir():
-            raise click.BadParameter(
-                f"cannot create {out!r}: {str(parent)!r} is a file, not a folder",
-                param_hint=hint)
-        if not os.access(parent, os.W_OK | os.X_OK):
-            raise click.BadParameter(
-                f"cannot create {out!r}: no permission to write in {str(parent)!r}",
-                param_hint=hint)
+        # tried by creating a temporary file there: permission bits say nothing to root
+        # or on a read-only file system, which were found only after the computation
+        from ..report.jsonout import folder_not_writable
+
+        problem = folder_not_writable(target)
+        if problem is not None:
+            raise click.BadParameter(f"cannot create {out!r}: {problem}", param_hint=hint)
 
 
 def check_distinct(files: tuple[str, ...]) -> None:
@@ -193,11 +190,37 @@ def finish(ctx: click.Context, command: str, *, json_path: str | None, text: str
 
         doc = build_document(command, inputs=inputs, settings=settings, results=results,
                              warnings=warnings, extra=extra)
-    write_outputs(fig, plot_path, doc, json_path)
-    for n in notes:
-        note(ctx, f"transport: note: {n}")
-    if json_path != "-":
-        click.echo(text)
+    # from here the command completes: Ctrl-C is held off, so that it either stopped the
+    # computation above (nothing written, exit 130) or the outputs are complete (exit 0)
+    with interrupts_held() as held:
+        write_outputs(fig, plot_path, doc, json_path)
+        for n in notes:
+            note(ctx, f"transport: note: {n}")
+        if json_path != "-":
+            click.echo(text)
+        if held:
+            note(ctx, "transport: note: interrupt received while the outputs were written; "
+                      "they are complete")
+
+
+@contextlib.contextmanager
+def interrupts_held() -> Iterator[list[int]]:
+    """Hold off SIGINT (Ctrl-C) inside the block; the list says whether one came.
+
+    Only the main thread can set signal handlers; elsewhere the block runs as it is.
+    """
+    import signal
+    import threading
+
+    got: list[int] = []
+    if threading.current_thread() is not threading.main_thread():
+        yield got
+        return
+    previous = signal.signal(signal.SIGINT, lambda signum, frame: got.append(signum))
+    try:
+        yield got
+    finally:
+        signal.signal(signal.SIGINT, previous)
 
 
 def stress_options(f: Callable) -> Callable:

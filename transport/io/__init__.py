@@ -282,7 +282,7 @@ def sniff_format(path: str | os.PathLike[str]) -> tuple[str, str | None]:
 # The tensor first, in its order: the reader stores kept columns as rows of one array in
 # this order, so that the six components can become the (6, n) pressure array in place.
 _STRESS_WANT = (*TENSOR_ORDER, *(c for c in PRESSURE_COMPONENTS if c not in TENSOR_ORDER),
-                "step", "time", "volume", "lx", "ly", "lz", "temperature")
+                "step", "time", "volume", "lx", "ly", "lz", "temperature", "press")
 
 
 def _read(
@@ -508,11 +508,10 @@ def load_stress(
     """
     from ._stress import stress_from_table
 
-    # A given temperature makes the file's temperature column unnecessary: not converted.
-    want = _STRESS_WANT if temperature is None else tuple(
-        c for c in _STRESS_WANT if c != "temperature")
+    # The temperature column is read also when a temperature is given: the two are
+    # compared (a set point in other units is refused, see transport.checks)
     table = _read(path, run=run, units=units, timestep=timestep, progress=progress,
-                  want=want)
+                  want=_STRESS_WANT)
     return stress_from_table(table, temperature=temperature, volume=volume, _consume=True)
 
 

@@ -318,6 +318,19 @@ def assemble(
                 f"{p.axis_name} {_fmt(parts[chosen[-1].index].axis_first)} (a restart?); "
                 "kept the later data"
             )
+        # later runs that print only part of the tensor: left out, which may be half the
+        # production (issue 11), so the user is told what they hold
+        for b in nonempty:
+            have = [c for c in TENSOR_ORDER if c in b.canonical]
+            if b.index > chosen[-1].index and have and not has_tensor(b) \
+                    and b.kind != "minimize":
+                p = parts[b.index]
+                warnings.append(
+                    f"{spath}: the later {word} {b.index} prints only {len(have)} of the 6 "
+                    f"pressure-tensor components ({' '.join(b.canonical[c] for c in have)}); "
+                    f"its {b.n} rows ({p.axis_name} {_fmt(p.axis_first)}-"
+                    f"{_fmt(p.axis_last)}) were left out and {word} {_span(chosen)} used; "
+                    "pass --run to choose, or print the full tensor in every run")
         unused = [b for b in with_tensor if b not in chosen and b not in superseded]
         if unused:
             idx = ", ".join(str(b.index) for b in unused)

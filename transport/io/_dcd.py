@@ -19,8 +19,47 @@ import numpy as np
 
 from ..errors import InputError
 
-__all__ = ["_DCDFrames", "_DCDLayout", "_bulk_dcd", "_dcd_dimensions", "_dcd_layout",
-           "_dcd_partial_tail"]
+__all__ = ["_DCDFrames", "_DCDLayout", "_LammpsDCD", "_bulk_dcd", "_dcd_dimensions",
+           "_dcd_layout", "_dcd_partial_tail", "_lammps_dcd"]
+
+#: The title remark LAMMPS writes into every DCD header (``dump dcd``).
+LAMMPS_REMARK = b"Written by LAMMPS"
+
+
+@dataclass(frozen=True)
+class _LammpsDCD:
+    """What the header of a DCD written by LAMMPS says about time.
+
+    LAMMPS stores its own integration time step (``update->dt``) in the header's time-step
+    field, in the time unit of the run's ``units`` style (fs for ``real``, ps for ``metal``,
+    tau for ``lj``), and the step numbers of the first frame and between frames. Readers of
+    the format (MDAnalysis among them) take that field in CHARMM's AKMA time unit
+    (48.88821 fs), which puts the frames 48.9x too far apart for ``units real`` and 20x too
+    close for ``units metal``. The file does not say which ``units`` style the run used.
+    """
+
+    delta: float  # integration time step, in the run's own time unit
+    istart: int  # step number of the first frame
+    nsavc: int  # steps between frames
+
+
+def _lammps_dcd(p: Path) -> _LammpsDCD | None:
+    """The time fields of a DCD file whose title remarks say LAMMPS wrote it, else None."""
+    try:
+        with open(p, "rb") as fh:
+            head = fh.read(4096)
+        for end in "<>":
+            if len(head) < 100 or struct.unpack(end + "i", head[:4])[0] != 84 \
+                    or head[4:8] != b"CORD":
+                continue
+            ic = struct.unpack(end + "9if10i", head[8:88])
+            title_bytes = struct.unpack(end + "i", head[92:96])[0]
+            if LAMMPS_REMARK not in head[96: 96 + max(0, title_bytes)]:
+                return None
+            return _LammpsDCD(float(ic[9]), int(ic[1]), int(ic[2]) or 1)
+    except (OSError, struct.error):
+        return None
+    return None
 
 
 @dataclass(frozen=True)

@@ -7,6 +7,14 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from ..checks import (
+    OUTLIER_MAD,
+    PRESSURE_MISMATCH,
+    pressure_column_mismatch,
+    pressure_outlier,
+    temperature_against_column,
+    temperature_plausible,
+)
 from ..errors import InputError
 from ..series import StressSeries
 from ._assemble import user_number
@@ -116,6 +124,41 @@ def _check_values(values: np.ndarray, table: Table, names: list[str], spath: str
             "corrupted run?)",
             fix="repair or remove the damaged rows, or choose another run with --run",
         )
+
+
+def _check_tensor(pressure: np.ndarray, table: Table, cols: dict, f: float,
+                  spath: str | None) -> list[str]:
+    """Absurd values (robust distance from the median, :mod:`transport.checks`) and a
+    diagonal that disagrees with the file's pressure column: an isolated damaged value is
+    an InputError naming its line, the rest are warnings."""
+    canon = table.canonical
+    out: list[str] = []
+    worst = pressure_outlier(pressure)
+    if worst is not None:
+        c, row, far, isolated = worst
+        name = canon[TENSOR_ORDER[c]]
+        value = float(pressure[c, row]) / f
+        what = (f"column '{name}' holds {value:.6g} in row {row + 1}, {far:.3g} robust "
+                "standard deviations (1.4826 x the median absolute deviation) from its median")
+        if isolated:
+            raise InputError(
+                what + " while the rows around it are ordinary: a damaged value, not a "
+                "fluctuation", path=spath, line=table.line_of(row),
+                expected=f"values within {OUTLIER_MAD:g} robust standard deviations",
+                fix="repair or remove the damaged row, or choose another run with --run")
+        out.append(f"{spath}: {what}, over several rows (an initial transient? it is "
+                   "removed by --skip auto or a --skip time; otherwise the run changed state)")
+    if "press" in canon and canon["press"] in cols:
+        rel, row = pressure_column_mismatch(pressure, cols[canon["press"]], scale=f)
+        if rel > PRESSURE_MISMATCH:
+            diag = ", ".join(canon[c] for c in TENSOR_ORDER[:3])
+            out.append(
+                f"{spath}: the diagonal components ({diag}) "
+                f"disagree with the pressure column '{canon['press']}': (Pxx + Pyy + Pzz)/3 - P "
+                f"is {rel:.2g} of the diagonal's size (median; largest at line "
+                f"{table.line_of(row)}); a component scaled or from another compute? The "
+                "viscosity uses the components")
+    return out
 
 
 def stress_from_table(
@@ -235,6 +278,12 @@ def stress_from_table(
         if volume is not None:
             given = user_number(volume, what="volume", option="--volume", path=spath) \
                 * units.volume
+            if not (np.isfinite(given) and given > 0):
+                raise InputError(f"--volume {volume!r} is not a positive number",
+                                 path=spath,
+                                 expected=f"the box volume in {units.length_label}^3",
+                                 fix="pass a positive --volume, or leave it out to use the "
+                                     f"file's {vol_how}")
             mean = float(np.mean(vol_file))
             if not np.isclose(given, mean, rtol=1e-3, atol=0):
                 warnings.append(
@@ -265,6 +314,12 @@ def stress_from_table(
             raise InputError(f"--temperature {temperature!r} is not a positive number",
                              path=spath, expected="the thermostat set point (K, or reduced)",
                              fix="pass a positive --temperature")
+        temperature_plausible(temp, reduced=units.reduced, path=spath)
+        if "temperature" in canon:
+            name = canon["temperature"]
+            _check_values(cols[name], table, [name], spath)
+            temperature_against_column(temp, cols[name], name=name, reduced=units.reduced,
+                                       path=spath, line=header_line)
         temp_how = "set point given by the user"
     elif "temperature" in canon:
         name = canon["temperature"]
@@ -302,11 +357,13 @@ def stress_from_table(
             else:
                 np.multiply(a, f, out=pressure[i])
             if _consume:
-                keep_for = {canon.get("volume"), canon.get("temperature"), axis_name}
+                keep_for = {canon.get("volume"), canon.get("temperature"), axis_name,
+                            canon.get("press")}
                 if canon[c] not in keep_for:
                     cols.pop(canon[c], None)
 
     _check_values(pressure, table, [canon[c] for c in TENSOR_ORDER], spath, scale=f)
+    warnings += _check_tensor(pressure, table, cols, f, spath)
 
     used = {c: canon[c] for c in TENSOR_ORDER}
     for c in ("pyx", "pzx", "pzy"):

@@ -27,16 +27,43 @@ __all__ = [
 ]
 
 
+#: Energy units of the engine unit styles (LAMMPS `units` documentation; GROMACS energy
+#: files: kJ/mol), for the energy columns of thermo output.
+_ENERGY_LABEL = {"real": "kcal/mol", "metal": "eV", "si": "J", "cgs": "erg",
+                 "electron": "Hartree", "micro": "pg um^2/us^2", "nano": "ag nm^2/ns^2",
+                 "gromacs": "kJ/mol", "lj": "reduced (lj)"}
+#: Thermo keywords (lower case, as printed by the engine) that are energies.
+_ENERGY_COLUMNS = {"pe", "ke", "etotal", "enthalpy", "evdwl", "ecoul", "epair", "ebond",
+                   "eangle", "edihed", "eimp", "emol", "elong", "etail", "toteng", "poteng",
+                   "kineng", "e_pair", "e_mol", "e_vdwl", "e_coul", "e_bond", "e_angle",
+                   "e_dihed", "e_impro", "e_long", "e_tail", "potential", "kinetic-en.",
+                   "total-energy"}
+#: Mass density of the unit styles (LAMMPS prints g/cm^3 for real and metal).
+_DENSITY_LABEL = {"real": "g/cm^3", "metal": "g/cm^3", "si": "kg/m^3", "cgs": "g/cm^3",
+                  "lj": "reduced (lj)", "gromacs": "kg/m^3"}
+
+
 def column_unit(table: Table, column: str) -> str:
     """Unit label of a column where its meaning and the file's units are known, else ''."""
     u = table.units
+    if u is None:
+        return ""
     canon = {v: k for k, v in table.canonical.items()}.get(column)
-    if u is None or canon is None:
+    name = (canon or column).lower()
+    if name in _ENERGY_COLUMNS:
+        return _ENERGY_LABEL.get(u.name, "")
+    if name == "density":
+        return _DENSITY_LABEL.get(u.name, "")
+    if canon is None:
         return ""
     if canon in ("press", "pxx", "pyy", "pzz", "pxy", "pxz", "pyz", "pyx", "pzx", "pzy"):
         return u.pressure_label
     if canon == "temperature":
-        return "reduced" if u.reduced else "K"
+        return "reduced (lj)" if u.reduced else "K"
+    if canon == "time":
+        return u.time_label
+    if canon == "step":
+        return "steps"
     if canon in ("lx", "ly", "lz"):
         return u.length_label
     if canon == "volume":
@@ -148,4 +175,24 @@ def checked_column(table: Table, name: str, *, path: str) -> tuple[np.ndarray, s
                 path=path, line=b.header_line, expected="distinct column names",
                 fix="rename or remove the repeated column")
     check_finite_column(table, col, x)
+    _check_spike(table, col, x, path)
     return x, col
+
+
+def _check_spike(table: Table, col: str, x: np.ndarray, path: str) -> None:
+    """InputError for an isolated value beyond the robust rule of
+    :func:`transport.checks.pressure_outlier` (a damaged cell: one 1e12 among pressures
+    made a mean of 8e7 without a word)."""
+    from ..checks import OUTLIER_MAD, pressure_outlier
+
+    worst = pressure_outlier(np.asarray(x)[None, :])
+    if worst is None or not worst[3]:
+        return
+    _, row, far, _ = worst
+    raise InputError(
+        f"column {col!r} holds {float(x[row]):.6g} in row {row + 1}, {far:.3g} robust "
+        "standard deviations (1.4826 x the median absolute deviation) from its median while "
+        "the rows around it are ordinary: a damaged value, not a fluctuation",
+        path=path, line=table.line_of(row),
+        expected=f"values within {OUTLIER_MAD:g} robust standard deviations",
+        fix="repair or remove the damaged row")

@@ -95,10 +95,11 @@ from numpy.typing import ArrayLike
 
 from .._memory import bulk_empty
 from .._parallel import available_cpus, lane_map
-from ..errors import InputError
+from ..checks import temperature_plausible
+from ..errors import InputError, Note
 from ..series import PositionSeries, Source
 from ..units import UnitSystem, get_unit_system
-from ._dcd import _bulk_dcd
+from ._dcd import _bulk_dcd, _lammps_dcd
 from ._frames import (
     _c_stderr_held,
     _fork_split,
@@ -910,11 +911,17 @@ def _open_topology(topology: Path, reduced: bool, *, first: Path | None = None,
             # otherwise opened one by one below: the error then names the culprit
     u, message = _mda_call(lambda: mda.Universe(str(topology), **kw))
     if message is not None:
+        package = _missing_package(message)
+        if package is None and "mock" in message.lower() and "h5py" in message.lower():
+            # MDAnalysis stands a mock in for a missing h5py; its error names the mock
+            package, message = "h5py", "h5py is not installed"
         raise InputError(
             f"cannot read the topology ({message})",
             path=str(topology),
             expected="a topology MDAnalysis reads (PDB, GRO, PSF, TPR, LAMMPS data, ...)",
-            fix="check the file and its suffix (MDAnalysis chooses the parser by suffix)",
+            fix=(f"install the package MDAnalysis needs for this format: pip install "
+                 f"{package}" if package else
+                 "check the file and its suffix (MDAnalysis chooses the parser by suffix)"),
         )
     return u
 
@@ -1072,6 +1079,8 @@ def load_trajectory(
         if val is not None and not (np.isfinite(val) and val > 0):
             raise InputError(f"{name} is {val!r}", expected=f"a positive {name}",
                              fix=f"pass a positive --{name.replace('_', '-')}")
+    if temperature is not None:
+        temperature_plausible(float(temperature), reduced=reduced)
     if not (np.isfinite(skip) and skip >= 0):
         raise InputError(f"skip is {skip!r}", expected="a non-negative time",
                          fix="pass a non-negative --skip")
@@ -1164,7 +1173,15 @@ def _factors(dump: _DumpInfo | None, unit_sys: UnitSystem | None, reduced: bool,
                 fix="pass --units (real, metal, lj, si, ...)",
             )
         return unit_sys.length, unit_sys.length / unit_sys.time
+    if unit_sys is not None and _is_dcd(path) and _lammps_dcd(path) is not None:
+        # LAMMPS writes DCD coordinates in the run's own length unit (Angstrom for real
+        # and metal, m for si, nm for nano, ...); MDAnalysis leaves DCD numbers as they are
+        return unit_sys.length, unit_sys.length / unit_sys.time
     return _ANGSTROM, _ANGSTROM / _PS
+
+
+def _is_dcd(path: Path) -> bool:
+    return path.suffix.lower() == ".dcd"
 
 
 @dataclass(frozen=True)
@@ -1204,6 +1221,30 @@ def _frame_clock(u: Any, dump: _DumpInfo | None, unit_sys: UnitSystem | None, re
             path=str(path), expected="step numbers (dump, XTC, TRR, DCD)",
             fix="give the time between frames with --frame-interval instead",
         )
+    lammps = (_lammps_dcd(path) if type(u.trajectory).__name__.startswith("DCD")
+              else None)
+    if lammps is not None:
+        # LAMMPS writes its time step in the run's own unit, not in the AKMA unit every DCD
+        # reader assumes (frames 48.9x too far apart for `units real`): the header's step
+        # is used only in the unit the user names
+        if unit_sys is None:
+            raise InputError(
+                f"DCD written by LAMMPS: its header time step ({lammps.delta:.6g} per step, "
+                f"{lammps.nsavc} steps between frames) is in the run's LAMMPS units, which "
+                "the file does not state, and would be read as CHARMM time units",
+                path=str(path), expected="the run's units style",
+                fix="pass --units (the run's LAMMPS units style, e.g. real) or --timestep",
+            )
+        if not (lammps.delta > 0 and math.isfinite(lammps.delta)):
+            raise InputError(
+                f"DCD written by LAMMPS with header time step {lammps.delta!r}",
+                path=str(path), expected="a positive time step in the header",
+                fix="pass --timestep (the integration time step)",
+            )
+        return _Clock("dcd_step", lammps.delta * tunit, float(lammps.istart),
+                      float(lammps.nsavc),
+                      f"step numbers x the LAMMPS header time step ({lammps.delta:.6g} "
+                      f"{unit_sys.time_label or unit_sys.name})")
     if reduced or dump is not None:
         raise InputError(
             "the time between frames is not known" + (
@@ -1417,9 +1458,13 @@ class _Collector:
         return ang if np.any(np.abs(ang - 90.0) > 1e-3) else None
 
     def finish(self) -> dict[str, Any]:
-        if self.n_seen < 2 or self.store_p is None or self.dt is None:
-            raise InputError(f"the trajectory has {self.n_seen} frame(s)", path=self.path,
-                             expected="at least 2 frames", fix="give a longer trajectory")
+        # three frames at least: a mean-squared displacement needs two lags to fit
+        if self.n_seen - self.k_skip < 3 or self.store_p is None or self.dt is None:
+            given = max(self.frames_given, self.n_seen)
+            kept = f" ({given - self.k_skip} after --skip)" if self.k_skip else ""
+            raise InputError(f"the trajectory has {given} frame(s){kept}", path=self.path,
+                             expected="at least 3 frames (far more for a diffusion "
+                             "coefficient)", fix="give a longer trajectory")
         n = self.n_seen - self.k_skip
         pos = self.store_p.finish(n)
         vel = None if self.store_v is None else self.store_v.finish(n)
@@ -1476,12 +1521,13 @@ class _NoBar:
         return None
 
 
-def _progress(enabled: bool, total: int) -> Any:
+def _progress(enabled: bool, total: int, desc: str = "reading frames",
+              unit: str = "frame") -> Any:
     if not enabled:
         return _NoBar()
     from .._progress import progress_bar
 
-    return progress_bar(True, total=total, desc="reading frames", unit="frame")
+    return progress_bar(True, total=total, desc=desc, unit=unit)
 
 
 def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
@@ -1497,9 +1543,14 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
     hashes = [FileHash(p) for p in paths]
     dumps = []
     lengths = []
-    for p in paths:
-        dumps.append(_load_trajectory_into(u, p, reduced, links))
-        lengths.append(len(u.trajectory))
+    # opening indexes the frames (a compressed dump is decompressed whole: ~10 s for
+    # 400 frames of 1372 atoms), so a person at a terminal sees a bar from the start
+    opening = _progress(progress, len(paths), desc="opening (indexing frames)", unit="file")
+    with opening:
+        for p in paths:
+            dumps.append(_load_trajectory_into(u, p, reduced, links))
+            lengths.append(len(u.trajectory))
+            opening.update(1)
     if unwrap == "auto":
         d0 = dumps[0]
         mode = ("unwrapped" if d0 is not None and d0.unwrapped else
@@ -1726,8 +1777,8 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
     res = coll.finish()
     warn = [*notes, *file_notes]
     if duplicates:
-        warn.append(f"{duplicates} frame(s) repeated at the boundary between parts were "
-                    "read once")
+        warn.append(Note(f"{duplicates} frame(s) repeated at the boundary between parts "
+                         "were read once"))
     if no_positions:
         warn.append(f"{no_positions} frame(s) without positions (velocities or forces "
                     "only) were skipped")
@@ -1736,7 +1787,8 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
             f"{proc.stats.raw_jumps} coordinate jump(s) of more than half a box between "
             "frames: the coordinates look wrapped, but --unwrap none was given")
     if res["spilled"]:
-        warn.append("positions were kept in a scratch file (larger than the memory limit)")
+        warn.append(Note("positions were kept in a scratch file (larger than the memory "
+                         "limit)"))
     temp, temp_src = temperature, "set point given by the user" if temperature else ""
     if temp is None:
         twoke = None if res["twoke"] is None else res["twoke"] * mass_factor  # amu -> kg
@@ -1744,6 +1796,12 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
         if temp is not None:
             temp_src = ("mean kinetic temperature from the velocities (3N - 3 degrees of "
                         "freedom)")
+            # the topology formats read here do not say which bonds were constrained
+            warn.append(Note(
+                f"temperature {temp:.4g} {'(reduced)' if reduced else 'K'} from the "
+                f"velocities assumes no constraints (3N - 3 = {3 * n_atoms - 3} degrees of "
+                "freedom); with constrained bonds it is too low (rigid 3-site water: by "
+                "a third): pass --temperature with the set point"))
     t_unit = "tau" if reduced else "s"
     label = proc.scheme_label()
     sources = tuple(

@@ -31,6 +31,7 @@ import numpy as np
 
 from ..errors import InputError
 from ..estimate import Estimate, _jsonable
+from ..units import is_reduced_unit
 
 __all__ = [
     "CAUTIONS",
@@ -237,7 +238,7 @@ def _viscosity_state(e: Estimate) -> tuple[float | None, float | None]:
     d = e.diagnostics
     t = _mean(d.get("temperature"))
     v = _mean(d.get("volume_mean"))
-    if v is not None and e.unit != "reduced":
+    if v is not None and not is_reduced_unit(e.unit):
         v *= 1e27  # m^3 -> nm^3
     return t, v
 
@@ -344,9 +345,9 @@ def build_report(documents: Sequence[ResultDocument], *,
         else:
             first = primary[0].estimate.diagnostics
             t_d, v_d = first.get("temperature"), first.get("box_volume")
-            unit_v = "reduced" if primary[0].estimate.unit == "reduced" else "mPa s"
+            reduced_d = is_reduced_unit(primary[0].estimate.unit)
             matches = [vp for vp, vr in visc_by_doc.items()
-                       if vr[0].estimate.unit == unit_v
+                       if is_reduced_unit(vr[0].estimate.unit) == reduced_d
                        and _close(_viscosity_state(vr[0].estimate)[0], t_d, 0.01)
                        and _close(_viscosity_state(vr[0].estimate)[1], v_d, 0.02)]
             if len(matches) != 1:

@@ -2,8 +2,8 @@
 
 from __future__ import annotations
 
+import io
 import os
-import tempfile
 from pathlib import Path
 
 __all__ = ["new_figure", "save_figure"]
@@ -34,18 +34,13 @@ def plot_format(path: str | os.PathLike[str]) -> str:
 
 
 def save_figure(fig, path: str | os.PathLike[str]) -> None:
-    """Write `fig` to `path` via a temporary file in the same folder and a rename."""
+    """Write `fig` to `path`: rendered in memory first, then written via a temporary file
+    in the same folder and a rename (:func:`transport.report.jsonout.atomic_write_bytes`),
+    so that no partial file is ever beside the outputs."""
+    from .jsonout import atomic_write_bytes
+
     p = Path(path)
     fmt = plot_format(p)
-    p.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.", suffix=p.suffix, dir=p.parent)
-    os.close(fd)
-    try:
-        fig.savefig(tmp, format=fmt, dpi=120)
-        from .jsonout import _umask
-
-        os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; give the usual mode
-        os.replace(tmp, p)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    buf = io.BytesIO()
+    fig.savefig(buf, format=fmt, dpi=120)
+    atomic_write_bytes(p, buf.getvalue())

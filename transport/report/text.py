@@ -73,7 +73,8 @@ def format_estimates(
     lines.append("  ".join(h.ljust(w) for h, w in zip(header, widths, strict=True)).rstrip())
     for r in rows:
         lines.append("  ".join(c.ljust(w) for c, w in zip(r, widths, strict=True)).rstrip())
-    extra = list(dict.fromkeys([*notes, *(w for e in estimates for w in e.warnings)]))
+    extra = list(dict.fromkeys([*notes, *(w for e in estimates for w in e.warnings),
+                                *(n for e in estimates for n in e.notes)]))
     if extra:
         lines.append("")
         lines.extend(f"note: {w}" for w in extra)

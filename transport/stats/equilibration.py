@@ -22,6 +22,14 @@ series becomes rare (1-10%) and coverage returns to 93-97%, while genuine transi
 depress ``N_eff(0)`` far more, are cut at Chodera's maximum as before.
 ``significance=0`` gives the plain rule.
 
+Leading outliers (our addition). A single first row far from the rest (a run's step-0
+output before the thermostat acts: 229 K in a run that sits at 86.5 K) barely changes the
+autocorrelation, so ``N_eff`` hardly rises when it is cut and the guard keeps it, biasing the
+mean (87.9 +- 1.5 instead of 86.52 +- 0.44 in the case reported). The first rows more than
+:data:`LEAD_OUTLIER` robust standard deviations (1.4826 times the median absolute
+deviation of the series) from its median are therefore removed before the search; a
+stationary normal series has such a value with probability ~1e-23 per row.
+
 Here ``g`` is ``2 tau_int`` with Sokal's automatic window
 (:func:`~transport.stats.integrated_autocorrelation_time`), and ``t0`` is searched on a grid
 of ``K`` candidates in ``[0, max_fraction N]`` rather than all ``N`` start points, so the
@@ -51,6 +59,21 @@ __all__ = ["Equilibration", "detect_equilibration"]
 
 #: Series longer than this are block-averaged before the search (points).
 _MAX_POINTS = 2**20
+#: Leading rows farther than this many robust standard deviations from the median are an
+#: initial transient, removed before the search (module notes).
+LEAD_OUTLIER = 10.0
+
+
+def _leading_outliers(a: np.ndarray, limit: int) -> int:
+    """Number of leading samples (at most `limit`) beyond LEAD_OUTLIER robust sd."""
+    step = max(1, a.size // 2**18)
+    sample = a[::step]
+    med = float(np.median(sample))
+    scale = 1.4826 * float(np.median(np.abs(sample - med)))
+    if not scale > 0:
+        return 0
+    near = np.abs(a[: limit + 1] - med) <= LEAD_OUTLIER * scale
+    return int(np.argmax(near)) if near.any() else limit
 
 
 @dataclass(frozen=True)
@@ -77,6 +100,8 @@ class Equilibration:
         The start points tried.
     n_effective_curve : ndarray
         ``N_eff`` at each candidate (for plots).
+    leading_outliers : int
+        First samples removed before the search as far outliers (included in `start`).
     """
 
     start: int
@@ -87,6 +112,7 @@ class Equilibration:
     n_samples: int
     candidates: np.ndarray
     n_effective_curve: np.ndarray
+    leading_outliers: int = 0
 
 
 def detect_equilibration(
@@ -141,6 +167,16 @@ def detect_equilibration(
         raise ValueError(f"`significance` must be a non-negative number; got {significance!r}")
     if not 0 <= max_fraction < 1:
         raise ValueError(f"`max_fraction` must be in [0, 1); got {max_fraction!r}")
+    lead = _leading_outliers(a, int(max_fraction * a.size))
+    if lead:
+        rest = detect_equilibration(a[lead:], n_candidates=n_candidates,
+                                    max_fraction=max_fraction, c=c, significance=significance)
+        return Equilibration(
+            start=lead + rest.start, max_start=lead + rest.max_start,
+            n_effective=rest.n_effective, statistical_inefficiency=rest.statistical_inefficiency,
+            at_search_limit=rest.at_search_limit, n_samples=a.size,
+            candidates=lead + rest.candidates, n_effective_curve=rest.n_effective_curve,
+            leading_outliers=lead)
     n = a.size
     block = max(1, -(-n // _MAX_POINTS))
     coarse = a if block == 1 else a[: (n // block) * block].reshape(-1, block).mean(axis=1)
