@@ -82,14 +82,14 @@ SCENARIO = Scenario(
     box_length=45.0,
     timestep_fs=1.0,
     thermo_every=4,
-    steps_per_replica=500_000,
+    steps_per_replica=1_000_000,
     replicas=4,
     experiment_mpas=5.1,
     experiment_uncertainty_mpas=0.1,
     models=(
-        DemoModel("model_a", "model A (fitted classical force field)", 6.2, (0.08, 2.5),
+        DemoModel("model_a", "model A (fitted classical force field)", 6.2, (0.08, 1.2),
                   (0.35, 0.65), 1.0),
-        DemoModel("model_b", "model B (machine-learned potential)", 4.9, (0.06, 2.0),
+        DemoModel("model_b", "model B (machine-learned potential)", 4.9, (0.06, 1.0),
                   (0.40, 0.60), 1.0),
     ),
 )
