@@ -108,8 +108,10 @@ def load_trajectory(
         MDAnalysis selection string of the atoms to analyse.
     group_by : {"atom", "type", "residue", "molecule"}
         Particles and species: the selected atoms as one species (``atom``), atoms by type
-        (``type``), centres of mass of residues by residue name (``residue``), or centres of
-        mass of bonded molecules (fragments) by residue name or composition (``molecule``).
+        (``type``), or centres of mass of residues (``residue``) or of bonded molecules
+        (fragments, ``molecule``). Residues and molecules are named by residue name, else by
+        composition: formula from elements (``C6H14``) or types with counts
+        (``t1x2-t2x4``); see :mod:`transport.io.grouping`.
     unwrap : {"auto", "none", "images", "displacement"}
         How continuous positions are obtained (see :mod:`transport.io.unwrapping`).
     units : str or UnitSystem, optional
