@@ -10,6 +10,9 @@ Estimators
     green_kubo, einstein, analyse_viscosity            shear viscosity
     analyse_diffusion, msd_diffusion, vacf_diffusion   self-diffusion
     mean_with_error                                    honest mean of any series
+Run-length verdicts
+    viscosity_verdicts, diffusion_verdicts             is the run long enough for a target?
+    run_verdict, Verdict                               the pure judgement on given results
 Corrections (pure functions of results)
     correct_diffusion, extrapolate_box_size            finite-size correction of D
 Comparison of candidates (pure functions of results)
@@ -36,6 +39,8 @@ from ._lazy import lazy_names
 __version__ = "0.1.0"
 
 _WHERE: dict[str, str] = {
+    "Verdict": "convergence",
+    "run_verdict": "convergence",
     "Deviation": "compare",
     "Difference": "compare",
     "Ranking": "compare",
@@ -66,6 +71,8 @@ _WHERE: dict[str, str] = {
     "UNIT_SYSTEMS": "units",
     "UnitSystem": "units",
     "get_unit_system": "units",
+    "diffusion_verdicts": "run_length",
+    "viscosity_verdicts": "run_length",
     "ViscosityAnalysis": "viscosity",
     "analyse_viscosity": "viscosity",
     "einstein": "viscosity",
@@ -86,12 +93,14 @@ __all__ = [
     "Source",
     "StressSeries",
     "UnitSystem",
+    "Verdict",
     "ViscosityAnalysis",
     "__version__",
     "analyse_diffusion",
     "analyse_viscosity",
     "correct_diffusion",
     "deviation_from_reference",
+    "diffusion_verdicts",
     "einstein",
     "estimate_dof",
     "extrapolate_box_size",
@@ -107,7 +116,9 @@ __all__ = [
     "pool_replicas",
     "rank_candidates",
     "read_table",
+    "run_verdict",
     "vacf_diffusion",
+    "viscosity_verdicts",
 ]
 
 
@@ -127,12 +138,14 @@ if TYPE_CHECKING:  # pragma: no cover - for type checkers and editors
         pool_replicas,
         rank_candidates,
     )
+    from .convergence import Verdict, run_verdict
     from .corrections import correct_diffusion, extrapolate_box_size
     from .diffusion import DiffusionAnalysis, analyse_diffusion, msd_diffusion, vacf_diffusion
     from .errors import InputError, RunTooShortError
     from .estimate import Estimate
     from .io import load_stress, load_stress_many, read_table
     from .io.trajectory import load_trajectory
+    from .run_length import diffusion_verdicts, viscosity_verdicts
     from .series import PositionSeries, Source, StressSeries
     from .stats import mean_with_error
     from .units import UNIT_SYSTEMS, UnitSystem, get_unit_system

@@ -82,14 +82,14 @@ SCENARIO = Scenario(
     box_length=45.0,
     timestep_fs=1.0,
     thermo_every=4,
-    steps_per_replica=500_000,
+    steps_per_replica=1_000_000,
     replicas=4,
     experiment_mpas=5.1,
     experiment_uncertainty_mpas=0.1,
     models=(
-        DemoModel("model_a", "model A (fitted classical force field)", 6.2, (0.08, 2.5),
+        DemoModel("model_a", "model A (fitted classical force field)", 6.2, (0.08, 1.2),
                   (0.35, 0.65), 1.0),
-        DemoModel("model_b", "model B (machine-learned potential)", 4.9, (0.06, 2.0),
+        DemoModel("model_b", "model B (machine-learned potential)", 4.9, (0.06, 1.0),
                   (0.40, 0.60), 1.0),
     ),
 )
@@ -289,6 +289,7 @@ def run_demo(
         echo(f"  {m.label}: Green–Kubo {gk.value:.2f} ± {gk.stderr:.2f} mPa s, "
              f"{dev:+.2f} mPa s ({dev / sc.experiment_mpas:+.0%}) from experiment")
     results["diffusion"] = _diffusion_step(outdir, rng, echo)
+    _run_length_step(files, echo, out=outdir)
     _report_step(outdir, echo)
     echo("")
     echo("caution: a transport coefficient is only as good as the potential and the sampling;")
@@ -401,6 +402,75 @@ def _diffusion_step(outdir: Path, rng: np.random.Generator,
     return list(res.estimates)
 
 
+#: Run-length step: the share of each replica a pilot of that model ran (model A's pilot
+#: ran a tenth of its production; model B is judged on its production runs).
+_PILOT_FRACTION = {"model_a": 0.1}
+
+
+def _run_length_step(files: dict[str, list[Path]], echo: Callable[[str], None],
+                     target: float = 0.05, out: Path | None = None) -> list:
+    """Run-length verdicts for a 5% target: model A's pilot, model B's production runs.
+
+    Model A's pilot is the first tenth of each of its production replicas, so the demo
+    shows the verdict on the pilot (too short), its projection, and then the error the full
+    production actually gave. The demo logs carry a placeholder loop time, so no wall-clock
+    hours are projected. With `out`, the verdicts are also written to
+    ``out/run_length.json``. Returns the verdicts.
+    """
+    from dataclasses import replace
+
+    from .convergence import too_short_verdict
+    from .errors import RunTooShortError
+    from .io import load_stress
+    from .report.verdicts import format_verdicts
+    from .run_length import viscosity_verdicts
+    from .viscosity import analyse_viscosity
+
+    sc = SCENARIO
+    echo("")
+    echo(f"run length: is each candidate's sampling enough for a {target:.0%} error bar?")
+    verdicts = []
+    for m in sc.models:
+        full = [load_stress(p, temperature=sc.temperature) for p in files[m.name]]
+        full = [replace(s, source=replace(s.source, wall_seconds_per_time=None)) for s in full]
+        frac = _PILOT_FRACTION.get(m.name, 1.0)
+        runs = full if frac == 1.0 else [
+            replace(s, pressure=np.ascontiguousarray(s.pressure[:, : int(s.n * frac)]))
+            for s in full]
+        try:
+            g = analyse_viscosity(runs).green_kubo
+            v = viscosity_verdicts(runs, [g], target=target)[0]
+        except RunTooShortError as exc:  # too short for any error bar: still a verdict
+            v = too_short_verdict(exc, quantity="shear_viscosity", method="green_kubo",
+                                  target=target, replicas=len(runs))
+        verdicts.append(v)
+        what = "production runs" if frac == 1.0 else f"pilot runs ({frac:.0%} of production)"
+        echo("")
+        each = sum(s.duration for s in runs) / len(runs) * runs[0].units.time_scale
+        echo(f"{m.label}, {sc.replicas} {what} of {each:.4g} {runs[0].units.time_unit} each:")
+        echo(format_verdicts([v], details=False))
+        echo(f"  {v.scaling.message}")
+        only_precision = all(c.passed is not False for c in v.checks
+                             if c.blocking and c.name != "precision")
+        if frac < 1.0 and not v.long_enough and only_precision and \
+                np.isfinite(v.relative_stderr):
+            gf = analyse_viscosity(full).green_kubo
+            t_full = v.run_time / frac / sc.replicas
+            pred = v.relative_stderr * (1.0 / frac) ** -v.scaling.exponent
+            echo(f"  check: the full {t_full:.4g} {v.time_unit} runs gave "
+                 f"{gf.stderr / abs(gf.value):.1%}; the pilot's projection for that length "
+                 f"was {pred:.1%}")
+    if out is not None:  # the verdicts as a result document (the report shows them)
+        from .report.jsonout import build_document, write_json
+
+        write_json(build_document("demo", inputs=[], settings={"target": target,
+                                                               "pilot": _PILOT_FRACTION},
+                                  results=[], extra={"verdicts": [v.to_record()
+                                                                  for v in verdicts]}),
+                   out / "run_length.json")
+    return verdicts
+
+
 def _report_step(outdir: Path, echo: Callable[[str], None]) -> Path:
     """Write the report of the whole scenario from the JSON results into ``outdir/report``.
 
@@ -412,7 +482,8 @@ def _report_step(outdir: Path, echo: Callable[[str], None]) -> Path:
 
     visc = [outdir / f"{m.name}_viscosity.json" for m in SCENARIO.models]
     diff = outdir / "diffusion.json"
-    docs = read_documents([*visc, diff])
+    verdicts = [outdir / "run_length.json"] if (outdir / "run_length.json").exists() else []
+    docs = read_documents([*visc, diff, *verdicts])
     report = build_report(docs, pairs=[(str(diff), str(visc[0]))],
                           title=f"transport demo: {SCENARIO.liquid}")
     html = write_report(report, outdir / "report")

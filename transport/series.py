@@ -37,6 +37,10 @@ class Source:
         Number of samples kept.
     columns : dict
         Canonical name -> name in the file, for the columns used.
+    wall_seconds_per_time : float or None
+        Wall-clock seconds the engine took per unit of simulated time (per s, or per tau),
+        from the run times a log reports (``Loop time of ...``) for the runs read; None when
+        the file does not say.
     """
 
     path: str = ""
@@ -45,6 +49,7 @@ class Source:
     description: str = ""
     rows: int = 0
     columns: dict[str, str] = field(default_factory=dict)
+    wall_seconds_per_time: float | None = None
 
     def to_record(self) -> dict:
         """JSON record for the ``inputs`` list."""
@@ -55,6 +60,7 @@ class Source:
             "read": self.description,
             "rows": int(self.rows),
             "columns": dict(self.columns),
+            "wall_seconds_per_time": self.wall_seconds_per_time,
         }
 
 

@@ -247,3 +247,60 @@ def load_stress_files(ctx: click.Context, files: tuple[str, ...], **kw: Any) -> 
     from ..io import load_stress
 
     return [load_stress(f, progress=want_progress(quiet(ctx)), **kw) for f in files]
+
+
+def target_options(f: Callable) -> Callable:
+    """``--target`` (relative standard error wanted) and ``--strict``."""
+    f = click.option(
+        "--strict", is_flag=True,
+        help="With --target: exit with code 3 when a run is not long enough (for job "
+             "scripts); otherwise the verdict never changes the exit code.")(f)
+    return click.option(
+        "--target", default=None,
+        help="Target relative standard error, e.g. 5% or 0.05: adds a run-length verdict "
+             "(is the run long enough, and if not, how much longer or how many more "
+             "replicas).")(f)
+
+
+def parse_target_option(target: str | None, strict: bool, *,
+                        default: str | None = None) -> float | None:
+    """The ``--target`` value as a fraction (None without it); ``--strict`` needs one."""
+    from ..convergence import parse_target
+
+    value = target if target is not None else default
+    if value is None:
+        if strict:
+            raise click.BadParameter("--strict needs --target", param_hint="--strict")
+        return None
+    try:
+        return parse_target(value)
+    except ValueError as exc:
+        raise click.BadParameter(str(exc), param_hint="--target") from None
+
+
+def exit_for_verdicts(ctx: click.Context, verdicts: Any, strict: bool) -> None:
+    """Exit code 3 under ``--strict`` when a verdict says "not long enough"."""
+    if strict and any(not v.long_enough for v in verdicts):
+        ctx.exit(3)
+
+
+def verdict_only(ctx: click.Context, command: str, error: Any, *, series: Any,
+                 target: float, strict: bool, method: str, json_path: str | None,
+                 settings: dict[str, Any], inputs: Any = None,
+                 quantity_of: str = "viscosity") -> None:
+    """Finish a command whose data were too short for any estimate, under ``--target``:
+    the verdict (not long enough, and the least time that gives an error bar) instead of
+    an error; exit code 0, or 3 with ``--strict``."""
+    from ..convergence import too_short_verdict
+    from ..report.verdicts import format_verdicts
+    from ..run_length import engine_speed
+
+    quantity = "shear_viscosity" if quantity_of == "viscosity" else "self_diffusion"
+    meth = {"green-kubo": "green_kubo", "both": "green_kubo"}.get(method, method)
+    v = too_short_verdict(error, quantity=quantity, method=meth, target=target,
+                          replicas=len(series), seconds_per_time=engine_speed(series))
+    srcs = inputs if inputs is not None else [s.source for s in series]
+    finish(ctx, command, json_path=json_path, inputs=srcs, settings=settings, results=[],
+           warnings=[error.one_line()], extra={"verdicts": [v.to_record()]},
+           text=format_verdicts([v]))
+    exit_for_verdicts(ctx, [v], strict)

@@ -11,12 +11,16 @@ from ._shared import (
     check_distinct,
     check_outputs,
     check_plot_path,
+    exit_for_verdicts,
     finish,
     json_option,
     load_stress_files,
+    parse_target_option,
     parse_time,
     plot_option,
     quiet,
+    target_options,
+    verdict_only,
 )
 
 
@@ -114,6 +118,7 @@ def _parse_viscosity(value: str | None) -> tuple[float, float] | str | None:
               help="Thermo log or table with the pressure tensor of the same run, for "
                    "--viscosity auto (repeat for replicas); read with --units, --timestep "
                    "and --temperature where the file does not say them.")
+@target_options
 @json_option
 @plot_option
 @click.pass_context
@@ -122,16 +127,41 @@ def diffusion(ctx: click.Context, topology: str, trajectories: tuple[str, ...], 
               timestep: float | None, frame_interval: float | None,
               temperature: float | None, continuation: bool, vacf: str, remove_drift: bool,
               scratch: str | None, viscosity: str | None, stress_files: tuple[str, ...],
-              json_path: str | None, plot_path: str | None) -> None:
+              target: str | None, strict: bool, json_path: str | None,
+              plot_path: str | None) -> None:
     """Self-diffusion from TOPOLOGY and TRAJECTORIES (several files = replicas, or parts of
     one run with --continue), per species, with the MSD fitted over its diffusive window,
-    the error bar from independent time blocks, and the VACF as a cross-check."""
+    the error bar from independent time blocks, and the VACF as a cross-check.
+
+    With --target, a run-length verdict follows the results for each species."""
+    run_diffusion(ctx, topology, trajectories, select=select, group_by=group_by,
+                  unwrap=unwrap, fit_window=fit_window, skip=skip, units=units,
+                  timestep=timestep, frame_interval=frame_interval, temperature=temperature,
+                  continuation=continuation, vacf=vacf, remove_drift=remove_drift,
+                  scratch=scratch, viscosity=viscosity, stress_files=stress_files,
+                  target=target, strict=strict, json_path=json_path, plot_path=plot_path)
+
+
+def run_diffusion(ctx: click.Context, topology: str, trajectories: tuple[str, ...], *,
+                  select: str = "all", group_by: str = "atom", unwrap: str = "auto",
+                  fit_window: str = "auto", skip: str = "0", units: str | None = None,
+                  timestep: float | None = None, frame_interval: float | None = None,
+                  temperature: float | None = None, continuation: bool = False,
+                  vacf: str = "auto", remove_drift: bool = True, scratch: str | None = None,
+                  viscosity: str | None = None, stress_files: tuple[str, ...] = (),
+                  target: str | None = None, strict: bool = False,
+                  json_path: str | None = None, plot_path: str | None = None,
+                  default_target: str | None = None, verdicts_only: bool = False,
+                  command: str = "diffusion") -> None:
+    """The body of ``transport diffusion`` (also run by ``transport check``)."""
     from .._progress import want_progress
     from ..diffusion import analyse_diffusion
+    from ..errors import RunTooShortError
     from ..io.trajectory import load_trajectory
     from ..report.text import format_estimates
     from ..units import get_unit_system
 
+    target_f = parse_target_option(target, strict, default=default_target)
     check_plot_path(plot_path)
     if units is not None:
         try:
@@ -160,8 +190,30 @@ def diffusion(ctx: click.Context, topology: str, trajectories: tuple[str, ...], 
         velocities=vacf != "no" or temperature is None,
         progress=want_progress(quiet(ctx)),
     )
-    result = analyse_diffusion(series, fit_window=window,  # type: ignore[arg-type]
-                               remove_drift=remove_drift, vacf=vacf)  # type: ignore[arg-type]
+    settings = {"topology": topology, "select": select, "group_by": group_by,
+                "unwrap": unwrap, "unwrap_used": [s.unwrap for s in series],
+                "fit_window": fit_window, "skip": skip, "units": series[0].units.name,
+                "timestep": timestep, "frame_interval": frame_interval,
+                "temperature": temperature, "continue": continuation, "vacf": vacf,
+                "remove_drift": remove_drift, "viscosity": viscosity,
+                "stress": list(stress_files), "target": target_f}
+    try:
+        result = analyse_diffusion(series, fit_window=window,  # type: ignore[arg-type]
+                                   remove_drift=remove_drift, vacf=vacf)  # type: ignore[arg-type]
+    except RunTooShortError as exc:
+        if target_f is None:
+            raise
+        verdict_only(ctx, command, exc, quantity_of="diffusion", series=series,
+                     target=target_f, strict=strict, method="msd_wls", json_path=json_path,
+                     settings=settings, inputs=[src for s in series for src in s.sources])
+        return
+    verdicts = ()
+    if target_f is not None:  # on the periodic-box estimates (before any correction)
+        from ..run_length import diffusion_verdicts
+
+        verdicts = diffusion_verdicts(series, result.estimates, target=target_f,
+                                      fit_window=window,  # type: ignore[arg-type]
+                                      remove_drift=remove_drift)
     est = list(result.estimates)
     notes = list(result.notes)
     stress_sources: list = []
@@ -179,17 +231,18 @@ def diffusion(ctx: click.Context, topology: str, trajectories: tuple[str, ...], 
 
         return diffusion_figure(result.msd, result.vacf)
 
-    settings = {"topology": topology, "select": select, "group_by": group_by,
-                "unwrap": unwrap, "unwrap_used": [s.unwrap for s in series],
-                "fit_window": fit_window, "skip": skip, "units": series[0].units.name,
-                "timestep": timestep, "frame_interval": frame_interval,
-                "temperature": temperature, "continue": continuation, "vacf": vacf,
-                "remove_drift": remove_drift, "viscosity": viscosity,
-                "stress": list(stress_files)}
-    finish(ctx, "diffusion", json_path=json_path, plot_path=plot_path, figure=figure,
-            inputs=[*(src for s in series for src in s.sources), *stress_sources],
-            settings=settings, results=est, warnings=notes,
-            text=format_estimates(est, title=title, notes=notes))
+    text = "" if verdicts_only else format_estimates(est, title=title, notes=notes)
+    if target_f is not None:
+        from ..report.verdicts import format_verdicts
+
+        text += ("" if verdicts_only else "\n\n") + format_verdicts(verdicts)
+    finish(ctx, command, json_path=json_path, plot_path=plot_path, figure=figure,
+           inputs=[*(src for s in series for src in s.sources), *stress_sources],
+           settings=settings, results=est, warnings=notes,
+           extra=None if target_f is None else
+           {"verdicts": [v.to_record() for v in verdicts]},
+           text=text)
+    exit_for_verdicts(ctx, verdicts, strict)
 
 
 def _corrected(ctx: click.Context, est: list, eta: tuple[float, float] | str,

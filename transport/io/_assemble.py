@@ -563,8 +563,16 @@ def assemble(
         tlabel = f" {unit_sys.time_label}" if unit_sys is not None else ""
         desc += f"; time step {ts_value:g}{tlabel} ({ts_source})"
 
+    # engine speed from the runs' wall-clock times, when every run read reports one
+    speed = None
+    loops = [(p.block.loop_seconds, p.block.loop_steps) for p in used]
+    if (loops and unit_sys is not None and ts_value is not None
+            and all(sec is not None and st for sec, st in loops)):
+        sim = sum(st for _, st in loops) * ts_value * unit_sys.time  # type: ignore[misc]
+        wall = sum(sec for sec, _ in loops)  # type: ignore[misc]
+        speed = wall / sim if sim > 0 and wall > 0 else None
     source = Source(path=spath, format=fmt, sha256=sha256, description=desc, rows=total,
-                    columns=dict(canonical))
+                    columns=dict(canonical), wall_seconds_per_time=speed)
     chosen_ids = {b.index for b in chosen}
     infos = []
     for b in blocks:

@@ -74,6 +74,9 @@ _RE_VARIABLE = re.compile(r"^\s*variable\s+(\S+)\s+equal\s+(.+?)\s*$")
 _RE_RUNCMD = re.compile(r"^\s*(run|minimize|rerun|min_modify)\b")
 _RE_EPOCH = re.compile(r"^\s*(reset_timestep|clear)\b")
 _RE_CINDEX = re.compile(r"^c_([^\[\]\s]+)\[(\d+)\]$")
+#: "Loop time of 12.3 on 4 procs for 1000 steps with 500 atoms": the run's wall-clock time.
+_LOOP_TIME = re.compile(
+    r"Loop time of\s+([0-9.eE+-]+)\s+on\s+\d+\s+procs?\s+for\s+(\d+)\s+steps")
 _END_MARKERS = ("Loop time of", "ERROR", "LAMMPS (", "Last command", "Total wall time")
 
 
@@ -132,6 +135,8 @@ class ScanBlock:
     warnings: list[str] = field(default_factory=list)
     short_last: tuple[int, int] | None = None  # (line, values seen) of a short final row
     closed: bool = False
+    loop_seconds: float | None = None  # wall-clock time of the run ('Loop time of ...')
+    loop_steps: int | None = None  # steps of the run that took loop_seconds
 
     @property
     def ncols(self) -> int:
@@ -747,6 +752,9 @@ class _Scanner:
         if blk is not None:
             if self.mode == "log" and stripped.startswith(_END_MARKERS):
                 if stripped.startswith("Loop time"):
+                    m = _LOOP_TIME.match(stripped)
+                    if m:
+                        blk.loop_seconds, blk.loop_steps = float(m[1]), int(m[2])
                     self._close_block(f"'Loop time' at line {line}")
                 else:
                     self._close_block(f"line {line}: {stripped[:60]!r}")
