@@ -23,7 +23,7 @@ from click.testing import CliRunner
 from transport.cli import main
 from transport.diffusion import analyse_diffusion, species_msd
 from transport.errors import InputError
-from transport.io import _dcd, _frames, trajectory
+from transport.io import _collect, _dcd, _frames, grouping, unwrapping
 from transport.io.trajectory import load_trajectory
 from transport.synthetic import brownian_positions
 
@@ -232,19 +232,19 @@ def test_dcd_brownian_units_species_and_truth(tmp_path):
 
 def _frame_by_frame(monkeypatch):
     """Make the reader take every frame from MDAnalysis's reader (no block reading)."""
-    monkeypatch.setattr(trajectory, "_bulk_dcd", lambda u, p: None)
+    monkeypatch.setattr(_collect, "_bulk_dcd", lambda u, p: None)
 
 
 def _spy_blocks(monkeypatch) -> list:
     """Record what the block-reader factory returns."""
     made: list = []
-    real = trajectory._bulk_dcd
+    real = _collect._bulk_dcd
 
     def spy(u, p):
         made.append(real(u, p))
         return made[-1]
 
-    monkeypatch.setattr(trajectory, "_bulk_dcd", spy)
+    monkeypatch.setattr(_collect, "_bulk_dcd", spy)
     return made
 
 
@@ -853,7 +853,7 @@ def test_cell_vectors_match_mdanalysis():
     rng = np.random.default_rng(49)
     dims = np.column_stack([rng.uniform(20, 60, (20, 3)), rng.uniform(60, 120, (20, 3))])
     dims = np.vstack([dims, [50, 50, 50, 60, 60, 90], [30, 40, 50, 90, 90, 90]])
-    ours = trajectory._cell_vectors(dims)
+    ours = unwrapping._cell_vectors(dims)
     ref = np.array([triclinic_vectors(d.astype(np.float32)) for d in dims])
     np.testing.assert_allclose(ours, ref, rtol=0, atol=1e-4)  # float32 reference
 
@@ -868,7 +868,7 @@ def _triclinic_run(rng, n_frames, n, cell_dims, steps_sd, scale=None):
     dims = np.tile(np.asarray(cell_dims, dtype=np.float64), (n_frames, 1))
     if scale is not None:
         dims[:, :3] *= scale[:, None]
-    cells = trajectory._cell_vectors(dims)
+    cells = unwrapping._cell_vectors(dims)
     inv = np.linalg.inv(cells)
     w = np.empty((n_frames, n, 3))
     true = np.empty_like(w)
@@ -886,12 +886,12 @@ def _unwrap_cells_in_blocks(w, dims, block):
     """The reader's frame processor on float64 frames with triclinic cells, in blocks:
     (continuous positions, raw jumps counted)."""
     n_frames, n, _ = w.shape
-    proc = trajectory._FrameProcessor(
+    proc = unwrapping._FrameProcessor(
         mode="displacement", explicit=False, atom_masses=np.ones(n),
-        particles=trajectory._Particles(np.arange(n), None, np.zeros(n, np.intp), ("a",),
+        particles=grouping._Particles(np.arange(n), None, np.zeros(n, np.intp), ("a",),
                                         np.ones(n), np.ones(n, np.intp)),
         velocities=False, path=None)
-    cells = trajectory._cell_vectors(dims)
+    cells = unwrapping._cell_vectors(dims)
     out = np.concatenate([proc.unwrap(w[a:a + block], dims[a:a + block, :3], None,
                                       cells[a:a + block]).copy()
                           for a in range(0, n_frames, block)])
@@ -910,7 +910,7 @@ def test_triclinic_image_flags(rescaled):
     dims = np.tile([30.0, 35.0, 40.0, 75.0, 80.0, 95.0], (n_frames, 1))
     if rescaled:
         dims[:, :3] *= (1.0 + 0.01 * np.sin(np.arange(n_frames) / 7.0))[:, None]
-    cells = trajectory._cell_vectors(dims)
+    cells = unwrapping._cell_vectors(dims)
     inv = np.linalg.inv(cells)
     w = np.empty((n_frames, n, 3))
     flags = np.zeros((n_frames, n, 3))
@@ -923,9 +923,9 @@ def test_triclinic_image_flags(rescaled):
         w[k] = y - crossed @ cells[k]
         flags[k] = flags[k - 1] + crossed
     assert np.any(flags != 0)
-    proc = trajectory._FrameProcessor(
+    proc = unwrapping._FrameProcessor(
         mode="images", explicit=False, atom_masses=np.ones(n),
-        particles=trajectory._Particles(np.arange(n), None, np.zeros(n, np.intp), ("a",),
+        particles=grouping._Particles(np.arange(n), None, np.zeros(n, np.intp), ("a",),
                                         np.ones(n), np.ones(n, np.intp)),
         velocities=False, path=None)
     u = np.concatenate([proc.unwrap(w[a:a + 16], dims[a:a + 16, :3], flags[a:a + 16],

@@ -125,11 +125,11 @@ def test_a_dcd_cut_inside_its_last_frame_is_read_with_a_warning(tmp_path, dcd_se
 def test_dcd_blocks_equal_mdanalysis_frame_by_frame(dcd_series, monkeypatch):
     """The engine's own DCD, read a block of frames at a time (the fixture) and through
     MDAnalysis's reader one Timestep per frame (the reference): the same series."""
-    from transport.io import _dcd, trajectory
+    from transport.io import _collect, _dcd
 
     lay = _dcd._dcd_layout(DCD)
     assert lay is not None and lay.cell and lay.n_atoms == 1372  # the plain layout
-    monkeypatch.setattr(trajectory, "_bulk_dcd", lambda u, p: None)
+    monkeypatch.setattr(_collect, "_bulk_dcd", lambda u, p: None)
     ref = load_trajectory(TOPOLOGY, DCD, units="lj", timestep=0.005)[0]
     np.testing.assert_array_equal(dcd_series.positions, ref.positions)
     np.testing.assert_array_equal(dcd_series.box, ref.box)

@@ -32,6 +32,8 @@ __all__ = [
     "MIN_FIT_POINTS",
     "OUTLIER_MAD",
     "PRESSURE_MISMATCH",
+    "REPLICA_TEMPERATURE_RTOL",
+    "REPLICA_VOLUME_RTOL",
     "STRESS_MIN_FIRST",
     "STRESS_WARN_FIRST",
     "TEMPERATURE_TOLERANCE",
@@ -458,9 +460,56 @@ def check_diffusion_result(analysis: Any, slist: Sequence[Any]) -> Any:
     return analysis
 
 
+#: Largest relative difference between the mean volumes of replicas of one system. Runs of
+#: one state point differ far less: the relative volume fluctuation under a barostat is
+#: sqrt(k_B T kappa_T / V), 0.8% for 1,000 water molecules at 298 K (kappa_T = 4.5e-10 1/Pa,
+#: from memory), and a run's mean averages many such samples; the same liquid at another
+#: size or density differs by far more (500 against 864 atoms at one density: 73%).
+REPLICA_VOLUME_RTOL = 0.05
+#: Largest relative difference between the temperatures of replicas. The instantaneous
+#: kinetic temperature fluctuates by sqrt(2 / (3N)) (3.6% for 500 atoms; common practice),
+#: and a run's mean over hundreds of independent samples by a tenth of that; 3% is above that
+#: scatter and below the spacing of most temperature series (298 and 310 K: 4%).
+REPLICA_TEMPERATURE_RTOL = 0.03
+
+
+def _replica_name(s: Any, k: int) -> str:
+    path = s.source.path if s.source is not None else ""
+    return path or f"series {k + 1}"
+
+
+def _same_value(slist: Sequence[Any], values: Sequence[float | None], what: str,
+                rtol: float, unit: str, fix: str) -> None:
+    """InputError naming `what` when two known values differ by more than `rtol`."""
+    known = [(k, v) for k, v in enumerate(values) if v is not None and math.isfinite(v)]
+    if len(known) < 2:
+        return
+    k0, v0 = known[0]
+    for k, v in known[1:]:
+        if abs(v - v0) > rtol * max(abs(v0), abs(v)):
+            u = f" {unit}" if unit else ""
+            by = (f" differ by {abs(v - v0) / max(abs(v0), abs(v)):.1%} (more than "
+                  f"{rtol:.0%})" if rtol > 0 else " differ")
+            within = f" within {rtol:.0%}" if rtol > 0 else ""
+            raise InputError(
+                f"replicas are not the same system: {what} {v0:.6g}{u} "
+                f"({_replica_name(slist[k0], k0)}) and {v:.6g}{u} "
+                f"({_replica_name(slist[k], k)}){by}",
+                path=slist[k].source.path or None,
+                expected=f"replicas of one system: the same {what}{within}",
+                fix=fix)
+
+
 def check_replicas(slist: Sequence[Any]) -> None:
-    """InputError when replicas are in different unit systems (checked before their
-    sampling intervals, which then differ too and would be blamed instead)."""
+    """InputError when replicas cannot be the same system.
+
+    Checked in this order, each naming the differing property and the two files: the unit
+    system (before the sampling intervals, which then differ too and would be blamed
+    instead), the number of atoms (position series), the mean volume
+    (:data:`REPLICA_VOLUME_RTOL`) and the temperature (:data:`REPLICA_TEMPERATURE_RTOL`).
+    Works on stress series (:class:`~transport.series.StressSeries`) and position series
+    (:class:`~transport.series.PositionSeries`) alike.
+    """
     names = [s.units.name for s in slist]
     if len(set(names)) > 1:
         k = next(i for i, nm in enumerate(names) if nm != names[0])
@@ -469,3 +518,31 @@ def check_replicas(slist: Sequence[Any]) -> None:
             f"({slist[0].source.path or 'series 1'}) and {names[k]}",
             path=slist[k].source.path or None, expected="one unit system across replicas",
             fix="read every replica with the same --units (or analyse them separately)")
+    if len(slist) < 2:
+        return
+    separately = "analyse different systems separately (or give the right files)"
+    atoms = [float(getattr(s, "system_atoms", 0)) or None for s in slist]
+    _same_value(slist, atoms, "number of atoms", 0.0, "", separately)
+    reduced = slist[0].units.reduced
+    _same_value(slist, [_mean_volume(s) for s in slist], "mean volume",
+                REPLICA_VOLUME_RTOL, "sigma^3" if reduced else "m^3", separately)
+    _same_value(slist, [s.temperature for s in slist], "temperature",
+                REPLICA_TEMPERATURE_RTOL, "(reduced)" if reduced else "K",
+                separately + "; if a temperature is wrong pass --temperature")
+
+
+def _mean_volume(s: Any) -> float | None:
+    """Mean volume of a stress series (its volume) or a position series (its cell)."""
+    if hasattr(s, "volume"):
+        return float(np.mean(s.volume))
+    box = getattr(s, "box", None)
+    if box is None:
+        return None
+    vol = np.prod(box, axis=1)
+    ang = getattr(s, "box_angles", None)
+    if ang is not None:
+        # triclinic cell volume abc sqrt(1 - sum cos^2 + 2 prod cos) (common practice)
+        c = np.cos(np.radians(ang))
+        vol = vol * np.sqrt(np.maximum(
+            1.0 - np.sum(c * c, axis=1) + 2.0 * np.prod(c, axis=1), 0.0))
+    return float(np.mean(vol))

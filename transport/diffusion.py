@@ -100,7 +100,7 @@ import numpy as np
 import scipy.fft as sfft
 from scipy import special
 
-from .checks import check_diffusion_result
+from .checks import check_diffusion_result, check_replicas
 from .errors import InputError, Note, RunTooShortError
 from .estimate import Estimate
 from .msd_fit import (
@@ -246,6 +246,7 @@ def _as_list(series: PositionSeries | Sequence[PositionSeries]) -> list[Position
     out = list(series)
     if not out:
         raise ValueError("no position series given")
+    check_replicas(out)  # units, atoms, volume, temperature (checks.py)
     dt = out[0].dt
     for s in out[1:]:
         if not math.isclose(s.dt, dt, rel_tol=1e-6):

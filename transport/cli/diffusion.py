@@ -75,7 +75,8 @@ def _parse_viscosity(value: str | None) -> tuple[float, float] | str | None:
               type=click.Choice(["atom", "molecule", "residue", "type"]), default="atom",
               show_default=True,
               help="Particles and species: the selected atoms as one group, atoms by type, "
-                   "or centres of mass of residues / bonded molecules by name.")
+                   "or centres of mass of residues / bonded molecules, named by residue name "
+                   "or else composition (e.g. C6H14, or t1x2-t2x4 from types).")
 @click.option("--unwrap", type=click.Choice(["auto", "none", "images", "displacement"]),
               default="auto", show_default=True,
               help="Continuous positions from unwrapped coordinates, image flags, or "
