@@ -5,7 +5,8 @@ synthetic stress has an exactly known Green–Kubo viscosity (model_a equals the
 reference, model_b is 20% high, model_c 14% low), two replicas each, written as thermo
 logs with a study manifest beside them.
 
-Run: ``python examples/compare_study.py [FOLDER]`` (default: a temporary folder).
+Run: ``python examples/compare_study.py [FOLDER]`` (default: a temporary folder); then
+``transport compare FOLDER/study.toml`` gives the same comparison from the command line.
 """
 
 from __future__ import annotations
@@ -17,7 +18,9 @@ from pathlib import Path
 import numpy as np
 
 from transport._study_data import write_synthetic_study
+from transport.report.comparison import format_comparison
 from transport.study import load_study
+from transport.study_analysis import analyse_study, compare_study
 
 TRUTH = {"model_a": {"T350": 5.0, "T400": 3.0},
          "model_b": {"T350": 6.0, "T400": 3.6},
@@ -33,6 +36,11 @@ def main(folder: str | None = None, seed: int = 1) -> Path:
     study = load_study(manifest)
     print(f"{manifest}: {len(study.candidates)} candidates, {len(study.states)} state "
           f"points, {len(study.runs)} runs")
+    # the same as `transport compare study.toml --workers 1 --no-store`
+    runs = analyse_study(study, workers=1)
+    result = compare_study(study, runs.records, rng=np.random.default_rng(seed),
+                           failures=runs.failures)
+    print(format_comparison(result))
     return manifest
 
 

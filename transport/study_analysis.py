@@ -36,8 +36,8 @@ from .compare import (
 from .estimate import Estimate
 from .study import Run, Study
 
-__all__ = ["QuantityComparison", "RunTask", "StudyComparison", "analyse_run",
-           "compare_study", "run_tasks_of"]
+__all__ = ["QuantityComparison", "RunTask", "StudyComparison", "StudyRuns", "analyse_run",
+           "analyse_study", "compare_study", "run_tasks_of", "sources_of"]
 
 #: Analysis settings that enter the results store's key (change one: re-analysed).
 DEFAULT_METHOD = "green-kubo"
@@ -198,7 +198,7 @@ def _primary(records: Sequence[Mapping[str, Any]]) -> dict[tuple, list[tuple[str
 
 def compare_study(study: Study, records: Sequence[Mapping[str, Any]], *,
                   target: float | None = None, rng: np.random.Generator,
-                  n_draws: int = 100_000) -> StudyComparison:
+                  n_draws: int = 100_000, failures: Sequence[str] = ()) -> StudyComparison:
     """Pool, correct, judge and compare the analysed runs of a study.
 
     Parameters
@@ -212,6 +212,8 @@ def compare_study(study: Study, records: Sequence[Mapping[str, Any]], *,
         For the probability-of-closest draws.
     n_draws : int
         Draws of :func:`transport.compare.rank_candidates`.
+    failures : sequence of str
+        Runs that failed (one line each), carried into the result.
     """
     from .convergence import run_verdict
     from .corrections import correct_diffusion
@@ -266,4 +268,83 @@ def compare_study(study: Study, records: Sequence[Mapping[str, Any]], *,
                 if len(est) > 1 else None
             comparisons.append(QuantityComparison(state.label, q, ref.species, reference,
                                                   tuple(results), diffs, ranking))
-    return StudyComparison(study.name, tuple(comparisons), (), tuple(warnings))
+    return StudyComparison(study.name, tuple(comparisons), tuple(failures), tuple(warnings))
+
+
+# ---- running a study's tasks (with the results store) -------------------------------------
+
+@dataclass(frozen=True)
+class StudyRuns:
+    """The records of a study's runs and how they were obtained.
+
+    Attributes
+    ----------
+    records : tuple of dict
+        One per run that succeeded, in manifest order.
+    failures : tuple of str
+        One line per run that failed (its name and the error).
+    analysed, reused : tuple of str
+        Names of the runs analysed now and of those read from the store.
+    """
+
+    records: tuple[dict[str, Any], ...]
+    failures: tuple[str, ...]
+    analysed: tuple[str, ...]
+    reused: tuple[str, ...]
+
+
+def analyse_study(study: Study, *, settings: Mapping[str, Any] | None = None,
+                  store: Any = None, workers: int | None = None,
+                  scheduler: str | None = None, progress: bool = False) -> StudyRuns:
+    """Analyse every run of `study` not already in `store`, on local processes or Dask.
+
+    Parameters
+    ----------
+    study : Study
+    settings : mapping, optional
+        Analysis settings shared by every run (enter the store's key).
+    store : transport.store.ResultStore, optional
+        Where analysed runs are kept and looked up (None: analyse everything, keep nothing).
+    workers, scheduler, progress
+        As in :func:`transport.parallel.run_tasks`.
+    """
+    from . import __version__
+    from .parallel import TaskFailure, run_tasks
+    from .store import run_key
+
+    tasks = run_tasks_of(study, settings)
+    hashes = [t.run.content_hash() for t in tasks] if store is not None else []
+    keys = [run_key(h, t.key_settings(), __version__) for h, t in zip(hashes, tasks,
+                                                                         strict=True)]
+    found = store.get_many(keys) if store is not None else {}
+    todo = [i for i in range(len(tasks)) if store is None or keys[i] not in found]
+    results = run_tasks(analyse_run, [tasks[i] for i in todo],
+                        names=[tasks[i].run.name for i in todo], workers=workers,
+                        scheduler=scheduler, progress=progress)
+    by_index: dict[int, Any] = dict(zip(todo, results, strict=True))
+    if store is not None:
+        store.put_many((keys[i], tasks[i].run.name, hashes[i], tasks[i].key_settings(),
+                        __version__, r) for i, r in by_index.items()
+                       if not isinstance(r, TaskFailure))
+    records: list[dict[str, Any]] = []
+    failures: list[str] = []
+    for i in range(len(tasks)):
+        r = by_index[i] if i in by_index else found[keys[i]]
+        if isinstance(r, TaskFailure):
+            failures.append(r.one_line())
+        else:
+            records.append(r)
+    return StudyRuns(tuple(records), tuple(failures),
+                     tuple(tasks[i].run.name for i in todo),
+                     tuple(t.run.name for i, t in enumerate(tasks) if i not in by_index))
+
+
+def sources_of(records: Sequence[Mapping[str, Any]]) -> list[Any]:
+    """The :class:`~transport.series.Source` of every input read by the runs' records."""
+    from .series import Source
+
+    return [Source(path=s["path"], format=s["format"], sha256=s.get("sha256"),
+                   description=s.get("read", ""), rows=int(s.get("rows", 0)),
+                   columns=dict(s.get("columns") or {}),
+                   wall_seconds_per_time=s.get("wall_seconds_per_time"))
+            for r in records for s in r.get("inputs", ())]
