@@ -41,7 +41,12 @@ def compare(ctx: click.Context, manifest: str, target: str | None, workers: int 
     import numpy as np
 
     from ..convergence import parse_target
-    from ..report.comparison import comparison_records, forest_figure, format_comparison
+    from ..report.comparison import (
+        comparison_records,
+        forest_figure,
+        format_comparison,
+        write_comparison_report,
+    )
     from ..store import ResultStore
     from ..study import load_study
     from ..study_analysis import analyse_study, compare_study, sources_of
@@ -81,46 +86,10 @@ def compare(ctx: click.Context, manifest: str, target: str | None, workers: int 
     text = format_comparison(sc) + (
         f"\nruns analysed now: {len(runs.analysed)}, read from the store: {len(runs.reused)}")
     if out is not None:
-        _write_report(study, sc, results, settings, out, sources_of(runs.records))
+        write_comparison_report(study, sc, settings, out, sources_of(runs.records))
         text += f"\nreport written to {out}/report.html"
     finish(ctx, "compare", json_path=json_path, text=text, inputs=sources_of(runs.records),
            settings=settings, results=results, warnings=sc.warnings, extra=comparison_records(sc),
            plot_path=plot_path, figure=lambda: forest_figure(sc))
     if sc.failures:
         ctx.exit(1 if not results else 0)
-
-
-def _write_report(study, sc, results, settings, out, sources) -> None:
-    """The report of the report stage for the whole study, with the forest plot."""
-    import hashlib
-
-    from ..report.comparison import comparison_records, forest_figure
-    from ..report.document import (
-        Figure,
-        ResultDocument,
-        _with_figures,
-        build_report,
-        figure_png,
-        write_report,
-    )
-    from ..report.jsonout import build_document
-
-    doc = build_document("compare", inputs=sources, settings=settings, results=results,
-                         warnings=sc.warnings, extra=comparison_records(sc))
-    sha = hashlib.sha256(study.path.read_bytes()).hexdigest()
-    rep = build_report([ResultDocument(str(study.path), sha, doc)],
-                       title=f"Comparison: {study.name}")
-    forest = Figure("forest", "Each candidate's 95% interval (points) against the "
-                    "reference's 95% band (grey), per state point and quantity.",
-                    figure_png(forest_figure(sc)))
-    lines = []
-    for q in sc.comparisons:
-        if q.ranking is not None:
-            lines.append(f"{q.state} {q.quantity}: ranking " + ", ".join(
-                f"{n} (P closest {p:.2f})" for n, p in zip(
-                    q.ranking.names, q.ranking.probability_closest, strict=True)))
-    from dataclasses import replace
-
-    rep = replace(_with_figures(rep, (forest, *rep.figures)),
-                  notes=(*rep.notes, *lines, *sc.failures))
-    write_report(rep, out)

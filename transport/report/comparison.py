@@ -2,12 +2,14 @@
 
 from __future__ import annotations
 
+from pathlib import Path
 from typing import Any
 
 from ..study_analysis import QuantityComparison, StudyComparison
 from .text import format_number
 
-__all__ = ["comparison_records", "forest_figure", "format_comparison"]
+__all__ = ["comparison_records", "forest_figure", "format_comparison",
+           "write_comparison_report"]
 
 _NAMES = {"shear_viscosity": "shear viscosity", "self_diffusion": "self-diffusion"}
 
@@ -105,3 +107,46 @@ def forest_figure(sc: StudyComparison) -> Any:
         ax.set_title(f"{q.state}: {what}", fontsize=9)
         ax.set_xlabel(ref.unit, fontsize=8)
     return fig
+
+
+def write_comparison_report(study: Any, sc: StudyComparison, settings: dict[str, Any],
+                            out: str | Path, sources: Any = ()) -> Path:
+    """The report of the report stage for the whole study (its pooled results, verdicts
+    and summary figures), with the forest plot first and the rankings among the notes.
+    Returns the path of the HTML document."""
+    import hashlib
+    from dataclasses import replace
+
+    from .document import (
+        Figure,
+        ResultDocument,
+        _with_figures,
+        build_report,
+        figure_png,
+        write_report,
+    )
+    from .jsonout import build_document
+
+    results = [r.estimate for q in sc.comparisons for r in q.candidates]
+    doc = build_document("compare", inputs=sources, settings=settings, results=results,
+                         warnings=sc.warnings, extra=comparison_records(sc))
+    sha = hashlib.sha256(Path(study.path).read_bytes()).hexdigest()
+    rep = build_report([ResultDocument(str(study.path), sha, doc)],
+                       title=f"Comparison: {study.name}")
+    forest = Figure("forest", "Each candidate's 95% interval (points) against the "
+                    "reference's 95% band (grey), per state point and quantity.",
+                    figure_png(forest_figure(sc)))
+    lines = []
+    for q in sc.comparisons:
+        if q.ranking is not None:
+            lines.append(f"{q.state} {q.quantity}: ranking " + ", ".join(
+                f"{n} (P closest {p:.2f})" for n, p in zip(
+                    q.ranking.names, q.ranking.probability_closest, strict=True)))
+        for x in q.differences:
+            lines.append(f"{q.state} {q.quantity}: {x.first} - {x.second} = "
+                         f"{format_number(x.difference)} ± {format_number(x.stderr, 2)}, "
+                         f"Holm p = {x.p_adjusted:.3g} "
+                         f"({'different' if x.significant else 'not different'})")
+    rep = replace(_with_figures(rep, (forest, *rep.figures)),
+                  notes=(*rep.notes, *lines, *sc.failures))
+    return write_report(rep, out)
