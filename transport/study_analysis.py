@@ -113,10 +113,8 @@ def analyse_run(task: RunTask) -> dict[str, Any]:
                              timestep=st.get("timestep"), temperature=task.temperature)
         res_d = analyse_diffusion(ps, vacf="no", workers=1)
         out["results"] += [e.to_record() for e in res_d.estimates]
-        p = ps[0]
-        out["run_times"]["self_diffusion"] = float(p.time[-1] - p.time[0]) * (
-            p.units.time_scale if hasattr(p.units, "time_scale") else 1.0)
-        out["inputs"].append(p.source.to_record())
+        out["run_times"]["self_diffusion"] = float(ps[0].duration * ps[0].units.time_scale)
+        out["inputs"] += [src.to_record() for p in ps for src in p.sources]
     return out
 
 
