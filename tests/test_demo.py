@@ -74,3 +74,17 @@ def test_demo_truths_inside_its_intervals(demo_run):
     # the printed verdicts say the same as the JSON
     verdicts = re.findall(r"-> (inside|OUTSIDE) the 95% interval", text)
     assert verdicts == ["inside"] * 6, verdicts
+
+
+def test_demo_compares_the_candidates_at_two_temperatures(demo_run):
+    out, stdout, _ = demo_run
+    doc = json.loads((out / "comparison.json").read_text())
+    ranks = {c["state"]: [r["name"] for r in c["ranking"]] for c in doc["comparisons"]}
+    # invented truth (SCENARIO): model B is 0.2 and 0.1 mPa s from the fictional
+    # experiment at 373 and 413 K, model A 1.1 and 0.7 mPa s (the margins are several
+    # combined standard errors at 373 K; at 413 K, 2 x 250 ps, about 2)
+    assert ranks["T373"] == ["model_b", "model_a"], ranks
+    assert set(ranks) == {"T373", "T413"}
+    assert (out / "comparison" / "report.html").is_file()
+    assert (out / "comparison" / "figures" / "forest.png").is_file()
+    assert "ranking by agreement with the reference" in stdout

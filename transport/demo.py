@@ -51,6 +51,7 @@ class DemoModel:
     times_ps: tuple[float, float]  # fast and slow stress relaxation times, ps
     fractions: tuple[float, float]  # share of the viscosity in each mode
     pressure_atm: float  # mean pressure, atm
+    viscosity_hot_mpas: float = float("nan")  # true viscosity at the second temperature
 
 
 @dataclass(frozen=True)
@@ -74,6 +75,13 @@ class Scenario:
     vibration_period_fs: float = 35.0
     vibration_damping_ps: float = 0.2
     vibration_variance_ratio: float = 20.0
+    #: the comparison's second state point: temperature (K), a fictional measurement
+    #: (mPa s) and shorter runs (steps per replica, replicas) of each model there
+    hot_temperature: float = 413.15
+    hot_experiment_mpas: float = 2.9
+    hot_experiment_uncertainty_mpas: float = 0.07
+    hot_steps_per_replica: int = 250_000
+    hot_replicas: int = 2
 
 
 SCENARIO = Scenario(
@@ -88,9 +96,9 @@ SCENARIO = Scenario(
     experiment_uncertainty_mpas=0.1,
     models=(
         DemoModel("model_a", "model A (fitted classical force field)", 6.2, (0.08, 1.2),
-                  (0.35, 0.65), 1.0),
+                  (0.35, 0.65), 1.0, 3.6),
         DemoModel("model_b", "model B (machine-learned potential)", 4.9, (0.06, 1.0),
-                  (0.40, 0.60), 1.0),
+                  (0.40, 0.60), 1.0, 2.8),
     ),
 )
 
@@ -288,6 +296,7 @@ def run_demo(
         dev = gk.value - sc.experiment_mpas
         echo(f"  {m.label}: Green–Kubo {gk.value:.2f} ± {gk.stderr:.2f} mPa s, "
              f"{dev:+.2f} mPa s ({dev / sc.experiment_mpas:+.0%}) from experiment")
+    _comparison_step(outdir, files, rng, echo, progress)
     results["diffusion"] = _diffusion_step(outdir, rng, echo)
     _run_length_step(files, echo, out=outdir)
     _report_step(outdir, echo)
@@ -469,6 +478,86 @@ def _run_length_step(files: dict[str, list[Path]], echo: Callable[[str], None],
                                                                   for v in verdicts]}),
                    out / "run_length.json")
     return verdicts
+
+
+def _comparison_step(outdir: Path, files: dict[str, list[Path]], rng: np.random.Generator,
+                     echo: Callable[[str], None], progress: bool) -> Path:
+    """The candidates compared end to end at two temperatures, as ``transport compare``.
+
+    The production logs at the first temperature are reused; each model also ran
+    ``hot_replicas`` shorter replicas at the second temperature (written here). A study
+    manifest (``study.toml``) names them with the fictional measurements; every run is
+    analysed (local processes, results kept in ``study.results.sqlite``), replicas pooled,
+    the candidates compared and the report written to ``outdir/comparison``. Returns the
+    path of the report's HTML document.
+    """
+    from dataclasses import replace
+
+    from ._study_data import write_synthetic_study
+    from .report.comparison import (
+        comparison_records,
+        forest_figure,
+        format_comparison,
+        write_comparison_report,
+    )
+    from .report.figures import save_figure
+    from .report.jsonout import build_document, write_json
+    from .store import ResultStore
+    from .study import load_study
+    from .study_analysis import analyse_study, compare_study, sources_of
+
+    sc = SCENARIO
+    hot = replace(sc, temperature=sc.hot_temperature)
+    volume_a3 = sc.box_length**3
+    kT = BOLTZMANN * sc.hot_temperature
+    dt_s = sc.timestep_fs * sc.thermo_every * _REAL.time
+    n = sc.hot_steps_per_replica // sc.thermo_every
+    t1, t2 = f"T{sc.temperature:.0f}", f"T{sc.hot_temperature:.0f}"
+    existing: dict[tuple[str, str], list[Path]] = {}
+    for m in sc.models:
+        model = _stress_model(replace(m, viscosity_mpas=m.viscosity_hot_mpas), hot,
+                              volume_a3 * _REAL.volume, kT)
+        existing[(m.name, t1)] = files[m.name]
+        existing[(m.name, t2)] = []
+        for r in range(sc.hot_replicas):
+            path = outdir / f"{m.name}_{t2}_replica{r + 1}.log.gz"
+            write_thermo_log(path, model.sample(n, dt_s, rng) / _REAL.pressure,
+                             temperature=sc.hot_temperature + 3.0 * rng.standard_normal(n),
+                             volume=volume_a3, timestep_fs=sc.timestep_fs,
+                             thermo_every=sc.thermo_every)
+            existing[(m.name, t2)].append(path)
+    manifest = write_synthetic_study(
+        outdir, truth={m.name: {t1: m.viscosity_mpas, t2: m.viscosity_hot_mpas}
+                       for m in sc.models},
+        references={t1: (sc.experiment_mpas, sc.experiment_uncertainty_mpas),
+                    t2: (sc.hot_experiment_mpas, sc.hot_experiment_uncertainty_mpas)},
+        temperatures={t1: sc.temperature, t2: sc.hot_temperature}, replicas=0, rows=0,
+        rng=rng, labels={m.name: m.label for m in sc.models}, existing=existing,
+        name=f"{sc.liquid}: candidate potentials", target=0.05)
+    study = load_study(manifest)
+    echo("")
+    echo(f"comparison of the candidates at {sc.temperature:g} K and {sc.hot_temperature:g} K "
+         f"against the fictional experiment (study manifest {manifest.name}; the same as "
+         f"`transport compare {manifest}`)")
+    with ResultStore(outdir / "study.results.sqlite") as store:
+        runs = analyse_study(study, store=store, progress=progress)
+    comp = compare_study(study, runs.records, rng=np.random.default_rng(0),
+                         failures=runs.failures)
+    echo(format_comparison(comp))
+    truth = ", ".join(f"{m.name} {m.viscosity_mpas:g} / {m.viscosity_hot_mpas:g}"
+                      for m in sc.models)
+    echo(f"(the invented truth, mPa s at {t1} / {t2}: {truth})")
+    settings = {"manifest": str(manifest), "target": 0.05, "alpha": study.alpha, "seed": 0}
+    save_figure(forest_figure(comp), outdir / "comparison_forest.png")
+    write_json(build_document("compare", inputs=sources_of(runs.records), settings=settings,
+                              results=[r.estimate for q in comp.comparisons
+                                       for r in q.candidates],
+                              warnings=comp.warnings, extra=comparison_records(comp)),
+               outdir / "comparison.json")
+    html = write_comparison_report(study, comp, settings, outdir / "comparison",
+                                   sources_of(runs.records))
+    echo(f"comparison report: {html}")
+    return html
 
 
 def _report_step(outdir: Path, echo: Callable[[str], None]) -> Path:

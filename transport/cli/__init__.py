@@ -14,7 +14,7 @@ or that runs through an existing file, is refused before anything is read.
 from __future__ import annotations
 
 # Importing the command modules registers their commands on the group.
-from . import average, check, demo, diffusion, inspect, report, viscosity  # noqa: F401
+from . import average, check, compare, demo, diffusion, inspect, report, viscosity  # noqa: F401
 from ._group import main
 
 __all__ = ["main"]

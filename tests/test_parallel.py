@@ -1,0 +1,45 @@
+"""Where tasks run: serial, local processes, a Dask cluster; failures keep the others."""
+
+from __future__ import annotations
+
+import math
+
+import pytest
+
+from transport.errors import InputError
+from transport.parallel import TaskFailure, run_tasks
+
+ITEMS = [4.0, -1.0, 9.0]
+NAMES = ["run a", "run b", "run c"]
+
+
+@pytest.mark.parametrize("workers", [1, 2])
+def test_failing_task_is_named_and_others_kept(workers):
+    out = run_tasks(math.sqrt, ITEMS, names=NAMES, workers=workers)
+    # math.sqrt(-1) raises ValueError (Python's documented behaviour)
+    assert out[0] == 2.0 and out[2] == 3.0
+    assert isinstance(out[1], TaskFailure)
+    assert out[1].name == "run b" and out[1].error == "ValueError"
+    assert out[1].one_line().startswith("run b: math domain error")
+
+
+def test_unreachable_scheduler_is_one_line():
+    pytest.importorskip("dask.distributed")
+    with pytest.raises(InputError, match=r"cannot reach the Dask scheduler at "
+                                         r"'tcp://127\.0\.0\.1:1'.*fix: start the cluster"):
+        run_tasks(math.sqrt, ITEMS, names=NAMES, scheduler="tcp://127.0.0.1:1", timeout=1)
+
+
+def test_missing_dask_says_how_to_install(monkeypatch):
+    import builtins
+
+    real = builtins.__import__
+
+    def no_dask(name, *a, **k):
+        if name.startswith("dask"):
+            raise ImportError(name)
+        return real(name, *a, **k)
+
+    monkeypatch.setattr(builtins, "__import__", no_dask)
+    with pytest.raises(InputError, match=r"fix: pip install 'transport-coefficients\[dask\]'"):
+        run_tasks(math.sqrt, ITEMS, names=NAMES, scheduler="tcp://127.0.0.1:8786")
