@@ -16,8 +16,10 @@ page cache (see ``bench_read_log.warm_cache``). Every case is timed as a whole p
 * ``cli-first``: ``transport viscosity LOG --temperature 300`` with an empty parse cache
   (Green–Kubo with the automatic cutoff and the error bar over independent pieces);
 * ``cli-cached``: the same command again, served from the parse cache it just filled;
-* ``cli-no-cache``: ``transport viscosity --no-cache ... --method both`` (Green–Kubo and
-  Einstein, parsing the text).
+* ``cli-no-cache``: ``transport viscosity --no-cache ...`` (parsing the text, writing no
+  cache: the cost of writing the cache is cli-first minus this).
+
+A case that fails is reported as failed (its error's last line) and the others go on.
 
 Ratios are the median over the rounds of each round's time over that round's pandas time
 (and, for ``cli-cached``, over that round's ``cli-first``). Goals (issue 16): cli-first at
@@ -31,9 +33,11 @@ Usage::
 
 from __future__ import annotations
 
+import json
 import os
 import shutil
 import statistics
+import subprocess
 import sys
 import tempfile
 from pathlib import Path
@@ -45,7 +49,6 @@ from bench_read_log import (  # noqa: E402
     generate,
     parse_common_args,
     remove_generated,
-    run_child,
     warm_cache,
 )
 
@@ -89,11 +92,15 @@ def _cmd(which: str, log: Path, bare: Path, cache: Path) -> list[str]:
         return [str(exe), "-c", _USER, str(bare)]
     if which in ("cli-first", "cli-cached"):
         return [*cli, "green-kubo", "--cache", str(cache)]
-    return [*cli, "both", "--no-cache"]
+    return [*cli, "green-kubo", "--no-cache"]
 
 
 def _measure(cmd: list[str]) -> dict:
-    return run_child(_WRAP, *cmd)
+    res = subprocess.run([sys.executable, "-c", _WRAP, *cmd], capture_output=True, text=True)
+    if res.returncode:
+        err = (res.stderr.strip().splitlines() or ["?"])[-1]
+        return {"seconds": float("nan"), "peak_kib": float("nan"), "error": err[-300:]}
+    return json.loads(res.stdout.strip().splitlines()[-1])
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -129,6 +136,10 @@ def main(argv: list[str] | None = None) -> int:
           "peak RSS MB |")
     print("|---|---:|---:|---:|---:|---|---:|")
     for which in cases:
+        errors = [r[which]["error"] for r in rounds if "error" in r[which]]
+        if errors:
+            print(f"| {which} | failed: {errors[0]} | | | | | |")
+            continue
         goal = goals.get(which)
         gtxt = "" if goal is None else f"<= {goal[1]}x {goal[0]}"
         if which == "cli-first":
