@@ -16,6 +16,7 @@ import time
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import pytest
 from conftest import DATA, committed
 
@@ -169,15 +170,16 @@ def test_killed_run_leaves_no_half_written_entry(tmp_path):
     that no entry looks complete without being so, and that the next run removes the
     temporary and serves the right numbers."""
     rng = np.random.default_rng(11)
-    n = 1_500_000  # ~100 MB to write: a window wide enough to be caught while polling
+    n = 300_000  # ~22 MB to write and fsync: a window wide enough to be caught by polling
     log = tmp_path / "big.log"
-    rows = rng.normal(0.0, 1.0, (n, 6))
+    frame = pd.DataFrame(rng.normal(0.0, 1.0, (n, 6)),
+                         columns=["Pxx", "Pyy", "Pzz", "Pxy", "Pxz", "Pyz"])
+    frame.insert(0, "Volume", 1000.0)
+    frame.insert(0, "Temp", 1.0)
+    frame.insert(0, "Step", np.arange(n))
     with open(log, "w") as fh:
-        fh.write("units lj\ntimestep 0.005\n"
-                 "   Step Temp Volume Pxx Pyy Pzz Pxy Pxz Pyz\n")
-        step = np.arange(n)[:, None]
-        data = np.hstack([step, np.full((n, 1), 1.0), np.full((n, 1), 1000.0), rows])
-        np.savetxt(fh, data, fmt=["%d", "%.1f", "%.1f"] + ["%.6f"] * 6)
+        fh.write("units lj\ntimestep 0.005\n")
+        frame.to_csv(fh, sep=" ", index=False, float_format="%.6f")
         fh.write("Loop time of 1.0 on 1 procs for 100 steps with 800 atoms\n")
     folder = tmp_path / "cache"
     code = ("import sys; from transport.io import load_stress; "
@@ -191,7 +193,7 @@ def test_killed_run_leaves_no_half_written_entry(tmp_path):
             seen_partial = True
             os.kill(proc.pid, signal.SIGKILL)
             break
-        time.sleep(0.002)
+        time.sleep(0.0005)
     proc.wait()
     assert seen_partial, "the run ended before its entry was being written"
     assert not list(folder.glob("*.json"))  # no entry: its record is written last
