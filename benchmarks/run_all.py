@@ -104,6 +104,8 @@ def main(argv: list[str] | None = None) -> int:
             continue
         if args.quick:
             sargs = QUICK.get(script.name, ["--quick"])
+            if script.name in QUICK:
+                sargs = [*sargs, "--scratch", str(args.scratch)]
         else:
             sargs = full.get(script.name, [])
         print(f"\n=== {script.name} {' '.join(sargs)}", flush=True)
