@@ -78,9 +78,19 @@ def _header(cols: list[str]) -> str:
 
 
 def _fmt_rows(rng: np.random.Generator, m: int) -> list[str]:
-    """m rows of the nine values after the step, in the engine's padded format."""
+    """m rows of the nine values after the step, in the engine's padded format.
+
+    The tensor components are AR(1) series (correlation time ~50 rows), so that the
+    generated log is a plausible stress record that the ``viscosity`` command's checks accept
+    (uncorrelated rows are refused as sampled too coarsely); the pool is cycled, with one
+    jump every `m` rows.
+    """
+    from scipy.signal import lfilter
+
     temp = rng.normal(300.0, 3.0, m)
-    tensor = rng.normal(0.0, 400.0, (6, m))
+    phi = np.exp(-1.0 / 50.0)
+    tensor = lfilter([np.sqrt(1.0 - phi**2)], [1.0, -phi],
+                     rng.normal(0.0, 400.0, (6, m)), axis=1)
     tensor[:3] += 1.0
     press = tensor[:3].mean(axis=0)
     vol = 64481.201 + rng.normal(0.0, 0.0, m)

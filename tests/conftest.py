@@ -17,7 +17,10 @@ Tests give their example counts relative to the profile with :func:`examples`, s
 
 from __future__ import annotations
 
+import atexit
 import os
+import shutil
+import tempfile
 from pathlib import Path
 
 from hypothesis import HealthCheck, settings
@@ -34,6 +37,12 @@ settings.load_profile(os.environ.get("HYPOTHESIS_PROFILE") or
 _BASE_EXAMPLES = 100
 
 DATA = Path(__file__).parent / "data"
+
+# The parse cache of every command run by the tests (in process or as a child process) goes
+# to a throw-away folder, never to the user's cache folder.
+_CACHE = tempfile.mkdtemp(prefix="transport-test-cache-")
+os.environ["TRANSPORT_CACHE"] = _CACHE
+atexit.register(shutil.rmtree, _CACHE, ignore_errors=True)
 
 
 def examples(n: int) -> int:

@@ -236,17 +236,48 @@ def stress_options(f: Callable) -> Callable:
                           "no volume or box-length column."),
         click.option("--run", "run", default=None,
                      help="Which thermo block of a log to use (1-based), or 'all'."),
+        *cache_options,
     ]
     for o in reversed(opts):
         f = o(f)
     return f
 
 
+def _remember(name: str) -> Callable:
+    def callback(ctx: click.Context, param: click.Parameter, value: Any) -> Any:
+        ctx.meta[f"transport.{name}"] = value
+        return value
+    return callback
+
+
+cache_options = [
+    click.option("--cache", "cache_dir", default=None, type=click.Path(file_okay=False),
+                 expose_value=False, callback=_remember("cache_dir"),
+                 help="Folder of the parse cache (parsed text logs kept as binary files); "
+                      "default $TRANSPORT_CACHE, else the user cache folder "
+                      "(~/.cache/transport). Size bound: TRANSPORT_CACHE_MAX (default 4G)."),
+    click.option("--no-cache", is_flag=True, expose_value=False,
+                 callback=_remember("no_cache"),
+                 help="Parse the files again and keep nothing in the parse cache."),
+]
+
+
+def parse_cache(ctx: click.Context) -> Any:
+    """The parse cache the options ask for (None with --no-cache)."""
+    from ..io._cache import ParseCache, cache_folder
+
+    if ctx.meta.get("transport.no_cache"):
+        return None
+    return ParseCache(cache_folder(ctx.meta.get("transport.cache_dir")))
+
+
 def load_stress_files(ctx: click.Context, files: tuple[str, ...], **kw: Any) -> list:
     from .._progress import want_progress
     from ..io import load_stress
 
-    return [load_stress(f, progress=want_progress(quiet(ctx)), **kw) for f in files]
+    cache = parse_cache(ctx)
+    return [load_stress(f, progress=want_progress(quiet(ctx)), cache=cache, **kw)
+            for f in files]
 
 
 def target_options(f: Callable) -> Callable:

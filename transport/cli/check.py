@@ -5,7 +5,7 @@ from __future__ import annotations
 import click
 
 from ._group import main
-from ._shared import json_option, quiet
+from ._shared import cache_options, json_option, quiet
 
 #: The target when --target is not given (5% relative standard error).
 DEFAULT_TARGET = "5%"
@@ -39,6 +39,8 @@ DEFAULT_TARGET = "5%"
 @click.option("--continue", "continuation", is_flag=True,
               help="Trajectories: the files are consecutive parts of one run.")
 @json_option
+@cache_options[0]
+@cache_options[1]
 @click.pass_context
 def check(ctx: click.Context, files: tuple[str, ...], target: str | None, strict: bool,
           units: str | None, timestep: float | None, temperature: float | None,

@@ -8,6 +8,7 @@ import click
 
 from ._group import main
 from ._shared import (
+    cache_options,
     check_distinct,
     check_outputs,
     check_plot_path,
@@ -118,6 +119,8 @@ def _parse_viscosity(value: str | None) -> tuple[float, float] | str | None:
               help="Thermo log or table with the pressure tensor of the same run, for "
                    "--viscosity auto (repeat for replicas); read with --units, --timestep "
                    "and --temperature where the file does not say them.")
+@cache_options[0]
+@cache_options[1]
 @target_options
 @json_option
 @plot_option

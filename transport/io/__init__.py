@@ -41,7 +41,7 @@ from __future__ import annotations
 
 import os
 from collections.abc import Collection, Iterable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -461,6 +461,7 @@ def load_stress(
     volume: float | None = None,
     run: Any = None,
     progress: bool = False,
+    cache: Any = None,
 ) -> StressSeries:
     """Read the pressure tensor of one file, in internal units (SI, or reduced LJ units).
 
@@ -490,6 +491,10 @@ def load_stress(
         Which thermo run(s) to read; see :func:`read_table`.
     progress : bool
         Show a progress bar on stderr while reading large files.
+    cache : ParseCache, optional
+        Keep the parsed columns of text files in this cache and take them from it when the
+        same file (same bytes) is read again with the same settings (see
+        ``transport.io._cache``). None (default): always parse.
 
     Returns
     -------
@@ -510,8 +515,27 @@ def load_stress(
 
     # The temperature column is read also when a temperature is given: the two are
     # compared (a set point in other units is refused, see transport.checks)
-    table = _read(path, run=run, units=units, timestep=timestep, progress=progress,
-                  want=_STRESS_WANT)
+    table = None
+    if cache is not None:
+        from ._open import check_path
+
+        given = check_path(path)
+        p = given.resolve()
+        # the path as given is part of the key: messages and provenance name it
+        settings = {"given": str(given), "run": run, "units": getattr(units, "name", units),
+                    "timestep": timestep, "want": list(_STRESS_WANT)}
+        st = p.stat()
+        table = cache.load(p, settings)
+        if table is None:
+            table = _read(path, run=run, units=units, timestep=timestep, progress=progress,
+                          want=_STRESS_WANT)
+            if table.source.format in ("lammps-log", "table"):
+                notes = cache.store(p, settings, table, st)
+                if notes:
+                    table = replace(table, warnings=(*table.warnings, *notes))
+    else:
+        table = _read(path, run=run, units=units, timestep=timestep, progress=progress,
+                      want=_STRESS_WANT)
     return stress_from_table(table, temperature=temperature, volume=volume, _consume=True)
 
 
@@ -524,6 +548,7 @@ def load_stress_many(
     volume: float | None = None,
     run: Any = None,
     progress: bool = False,
+    cache: Any = None,
 ) -> list[StressSeries]:
     """Read several files with :func:`load_stress` (same options for each), in order.
 
@@ -538,7 +563,7 @@ def load_stress_many(
                          fix="pass one or more files")
     return [
         load_stress(p, units=units, timestep=timestep, temperature=temperature,
-                    volume=volume, run=run, progress=progress)
+                    volume=volume, run=run, progress=progress, cache=cache)
         for p in paths
     ]
 
