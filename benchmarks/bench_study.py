@@ -22,8 +22,8 @@ from pathlib import Path
 
 import numpy as np
 
-from transport._parallel import available_cpus
 from transport._study_data import write_synthetic_study
+from transport._threads import available_cpus
 from transport.study import load_study
 from transport.study_analysis import analyse_study
 

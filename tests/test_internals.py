@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 
 from transport import _memory
-from transport._parallel import lane_map
+from transport._threads import lane_map
 
 BUDDYINFO = (
     "Node 0, zone      DMA      0      0      0      0      0      0      0      0      1  1  3\n"

@@ -22,7 +22,7 @@ from concurrent.futures import Future, ProcessPoolExecutor, as_completed
 from dataclasses import dataclass
 from typing import Any, TypeVar
 
-from ._parallel import available_cpus
+from ._threads import available_cpus
 from .errors import InputError
 
 __all__ = ["TaskFailure", "run_tasks"]

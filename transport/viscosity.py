@@ -40,7 +40,6 @@ from typing import Literal
 import numpy as np
 from scipy import stats
 
-from ._parallel import thread_map
 from ._pieces import (
     _TRACELESS,
     MIN_PIECES,
@@ -55,6 +54,7 @@ from ._pieces import (
     _weights,
     traceless_stress,
 )
+from ._threads import thread_map
 from .checks import check_replicas, check_viscosity_result, stress_sampling
 from .errors import InputError
 from .estimate import Estimate

@@ -26,7 +26,7 @@ from typing import Any
 
 import numpy as np
 
-from .._parallel import available_cpus
+from .._threads import available_cpus
 from ..errors import InputError
 from ._dcd import _dcd_partial_tail
 from ._open import compression_of

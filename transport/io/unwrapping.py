@@ -55,7 +55,7 @@ from typing import Literal
 
 import numpy as np
 
-from .._parallel import available_cpus, lane_map
+from .._threads import available_cpus, lane_map
 from ..errors import InputError
 from .grouping import _Particles
 

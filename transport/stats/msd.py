@@ -29,7 +29,7 @@ import numpy as np
 import scipy.fft as sfft
 from numpy.typing import ArrayLike
 
-from .._parallel import available_cpus, thread_map
+from .._threads import available_cpus, thread_map
 from .correlation import _check_max_lag, _power_inplace
 
 __all__ = ["msd", "msd_per_particle"]
