@@ -105,6 +105,12 @@ class ViscosityAnalysis:
 def _running_integrals(prep: _Prepared, weights: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Per-piece weighted stress ACF (internal pressure^2) and running integral (viscosity)."""
     lag = prep.max_lag
+    if prep.acfs is not None:  # computed chunk by chunk (viscosity_streaming)
+        acfs = prep.acfs
+        pref = np.array([pc.prefactor for pc in prep.pieces])
+        integ = np.zeros_like(acfs)
+        integ[:, 1:] = np.cumsum(0.5 * (acfs[:, 1:] + acfs[:, :-1]), axis=1) * prep.dt
+        return acfs, integ * pref[:, None]
 
     def acf(pc: _Piece) -> np.ndarray:
         return weighted_autocorrelation([pc.stress], weights, max_lag=lag, mix=_TRACELESS,
@@ -231,11 +237,14 @@ def analyse_viscosity(
     components: Components = "all",
     sigma_fraction: float = 0.4,
     n_pieces: int | None = None,
+    stream: bool = False,
 ) -> ViscosityAnalysis:
     """Green–Kubo and/or Einstein viscosity sharing one preparation of the data.
 
     Parameters are those of :func:`green_kubo` and :func:`einstein`; `method` chooses which
-    estimates are made.
+    estimates are made. With `stream`, each independent piece is correlated chunk by chunk
+    in bounded memory (:mod:`transport.viscosity_streaming`; for series whose pressure is
+    memory-mapped from disk); the results equal the in-memory ones to rounding.
 
     Returns
     -------
@@ -253,6 +262,12 @@ def analyse_viscosity(
     common_warn = tuple(w for s in slist for w in s.warnings) + prep.notes
     common_warn += stress_sampling(prep, slist, weights)  # refuses a too coarse sampling
     # a temperature taken from the file's mean is already a warning of the reader
+    if stream and prep.pieces:
+        from .viscosity_streaming import streamed_preparation
+
+        prep = streamed_preparation(prep, weights, green_kubo=method != "einstein",
+                                    einstein=method != "green-kubo" and
+                                    len(prep.pieces) >= MIN_PIECES)
     gk = ei = None
     if method in ("green-kubo", "both"):
         gk = _green_kubo(prep, slist, weights, cutoff, sigma_fraction, components, common_warn)
@@ -469,6 +484,9 @@ def _einstein(
     t = np.arange(lag + 1) * prep.dt
     msd = np.empty((n, lag + 1))
     for i, pc in enumerate(prep.pieces):
+        if prep.helfand_msd is not None:  # computed chunk by chunk (viscosity_streaming)
+            msd = prep.helfand_msd
+            break
         # Helfand moment: time integral of the stress (trapezoid), internal units
         st = _TRACELESS @ np.stack(pc.stress) - pc.offset[:, None]
         g = np.empty_like(st)
