@@ -11,6 +11,7 @@ import numpy as np
 import pytest
 
 import transport.viscosity_streaming as vstream
+from transport._memory import release_pages
 from transport.series import StressSeries
 from transport.synthetic import OUStressModel
 from transport.viscosity import analyse_viscosity
@@ -88,5 +89,5 @@ def test_stream_from_memory_mapped_series(tmp_path, monkeypatch):
                           stream=True)
     _same(a.green_kubo, b.green_kubo)
     _same(a.einstein, b.einstein)
-    vstream.release_pages(mm)  # still readable afterwards (the data stay in the file)
+    release_pages(mm)  # still readable afterwards (the data stay in the file)
     np.testing.assert_array_equal(mm[:, -3:], p[:, -3:])

@@ -40,6 +40,7 @@ from typing import Literal
 import numpy as np
 from scipy import stats
 
+from ._memory import file_backed
 from ._pieces import (
     _TRACELESS,
     MIN_PIECES,
@@ -237,14 +238,15 @@ def analyse_viscosity(
     components: Components = "all",
     sigma_fraction: float = 0.4,
     n_pieces: int | None = None,
-    stream: bool = False,
+    stream: bool | None = None,
 ) -> ViscosityAnalysis:
     """Green–Kubo and/or Einstein viscosity sharing one preparation of the data.
 
     Parameters are those of :func:`green_kubo` and :func:`einstein`; `method` chooses which
     estimates are made. With `stream`, each independent piece is correlated chunk by chunk
-    in bounded memory (:mod:`transport.viscosity_streaming`; for series whose pressure is
-    memory-mapped from disk); the results equal the in-memory ones to rounding.
+    in bounded memory (:mod:`transport.viscosity_streaming`); the results equal the
+    in-memory ones to rounding. None (default): when a series' pressure is file-backed
+    (memory-mapped; ``load_stress(stream=...)``).
 
     Returns
     -------
@@ -262,6 +264,8 @@ def analyse_viscosity(
     common_warn = tuple(w for s in slist for w in s.warnings) + prep.notes
     common_warn += stress_sampling(prep, slist, weights)  # refuses a too coarse sampling
     # a temperature taken from the file's mean is already a warning of the reader
+    if stream is None:
+        stream = any(file_backed(s.pressure) is not None for s in slist)
     if stream and prep.pieces:
         from .viscosity_streaming import streamed_preparation
 

@@ -38,35 +38,18 @@ References
 
 from __future__ import annotations
 
-import mmap
 from dataclasses import replace
 
 import numpy as np
 
+from ._memory import release_pages
 from ._pieces import _TRACELESS, _Piece, _Prepared
 from .stats import StreamingCorrelator
 
-__all__ = ["CHUNK", "release_pages", "streamed_preparation"]
+__all__ = ["CHUNK", "streamed_preparation"]
 
 #: Samples per chunk read from a piece (6 rows x 2^20 float64 = 48 MB per chunk copy).
 CHUNK = 1 << 20
-
-
-def release_pages(a: np.ndarray) -> None:
-    """Drop the resident pages of a file-backed (memory-mapped) array from this process.
-
-    For a shared file mapping the data stay in the file (and the page cache); the next
-    access maps them in again. Nothing happens for ordinary arrays. Used after each chunk
-    so that the resident memory of a pass over a memory-mapped series stays at one chunk.
-    """
-    base = a
-    while base is not None and not isinstance(base, mmap.mmap):
-        base = getattr(base, "base", None)
-    if isinstance(base, mmap.mmap) and hasattr(mmap, "MADV_DONTNEED"):
-        try:
-            base.madvise(mmap.MADV_DONTNEED)
-        except (OSError, ValueError):  # a closed or odd mapping: keep the pages
-            pass
 
 
 def _piece_sums(pc: _Piece, weights: np.ndarray, max_lag: int, dt: float,
