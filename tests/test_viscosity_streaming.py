@@ -7,11 +7,16 @@ rounding may differ (FFT lag sums accumulated block by block in another order).
 
 from __future__ import annotations
 
+import gzip
+import json
+
 import numpy as np
 import pytest
+from conftest import DATA, committed
 
+import transport.io as tio
 import transport.viscosity_streaming as vstream
-from transport._memory import release_pages
+from transport._memory import file_backed, release_pages
 from transport.series import StressSeries
 from transport.synthetic import OUStressModel
 from transport.viscosity import analyse_viscosity
@@ -91,3 +96,62 @@ def test_stream_from_memory_mapped_series(tmp_path, monkeypatch):
     _same(a.einstein, b.einstein)
     release_pages(mm)  # still readable afterwards (the data stay in the file)
     np.testing.assert_array_equal(mm[:, -3:], p[:, -3:])
+
+
+# ---- the reader side: parsed rows kept in a scratch file --------------------------------
+
+LOG_GZ = DATA / "lj_viscosity" / "lj_visc_rep1.log.gz"
+
+
+@pytest.fixture
+def plain_log(tmp_path):
+    """A plain-text copy of a committed engine log (real data, 5x10^4 lines)."""
+    p = tmp_path / "rep1.log"
+    p.write_bytes(gzip.decompress(committed(LOG_GZ).read_bytes()))
+    return p
+
+
+def test_streamed_read_equals_in_memory_read_and_leaves_nothing(plain_log, tmp_path):
+    scratch = tmp_path / "scratch"
+    mem = tio.load_stress(plain_log, temperature=0.7248, stream=False, scratch=scratch)
+    disk = tio.load_stress(plain_log, temperature=0.7248, stream=True, scratch=scratch)
+    assert file_backed(disk.pressure) is not None and file_backed(mem.pressure) is None
+    # the same parse written to another place: equal to the bit
+    np.testing.assert_array_equal(disk.pressure, mem.pressure)
+    assert (disk.dt, disk.volume, disk.source) == (mem.dt, mem.volume, mem.source)
+    assert list(scratch.iterdir()) == []  # the scratch file is unlinked once mapped
+    a = analyse_viscosity(mem, method="both")
+    b = analyse_viscosity(disk, method="both")  # streams: the pressure is file-backed
+    _same(a.green_kubo, b.green_kubo)
+    _same(a.einstein, b.einstein)
+
+
+def test_automatic_streaming_follows_available_memory(plain_log, tmp_path, monkeypatch):
+    import transport._memory as mem
+
+    scratch = tmp_path / "scratch"
+    monkeypatch.setattr(mem, "available_bytes", lambda: 10**12)  # plenty: in memory
+    assert file_backed(tio.load_stress(plain_log, temperature=0.7248, scratch=scratch)
+                       .pressure) is None
+    monkeypatch.setattr(mem, "available_bytes", lambda: 10**6)  # 1 MB: to the scratch file
+    assert file_backed(tio.load_stress(plain_log, temperature=0.7248, scratch=scratch)
+                       .pressure) is not None
+
+
+def test_cli_stream_flag_gives_the_same_json(plain_log, tmp_path):
+    from click.testing import CliRunner
+
+    from transport.cli import main
+
+    out = {}
+    for flag in ("--no-stream", "--stream"):
+        path = tmp_path / f"{flag[2:]}.json"
+        res = CliRunner().invoke(main, ["viscosity", str(plain_log), "--temperature", "0.7248",
+                                        "--cache", str(tmp_path / "c"), flag,
+                                        "--json", str(path)])
+        assert res.exit_code == 0, res.output
+        out[flag] = json.loads(path.read_text())["results"][0]
+    a, b = out["--no-stream"], out["--stream"]
+    assert b["value"] == pytest.approx(a["value"], rel=VALUE_RTOL)
+    assert b["stderr"] == pytest.approx(a["stderr"], rel=VALUE_RTOL)
+    assert b["window"] == a["window"]
