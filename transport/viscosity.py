@@ -38,7 +38,7 @@ from dataclasses import dataclass
 from typing import Literal
 
 import numpy as np
-from scipy import stats
+from scipy import special  # not scipy.stats: its import takes ~1 s
 
 from ._memory import file_backed
 from ._pieces import (
@@ -299,7 +299,7 @@ def _common_diag(prep: _Prepared, slist: list[StressSeries], components: str) ->
 
 
 def _interval(value: float, stderr: float, n: int) -> tuple[float, float]:
-    q = float(stats.t.ppf(0.975, max(n - 1, 1)))
+    q = float(special.stdtrit(max(n - 1, 1), 0.975))  # Student t quantile (t.ppf)
     return value - q * stderr, value + q * stderr
 
 

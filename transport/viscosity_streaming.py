@@ -44,6 +44,7 @@ import numpy as np
 
 from ._memory import release_pages
 from ._pieces import _TRACELESS, _Piece, _Prepared
+from ._threads import thread_map
 from .stats import StreamingCorrelator
 
 __all__ = ["CHUNK", "streamed_preparation"]
@@ -140,11 +141,12 @@ def streamed_preparation(prep: _Prepared, weights: np.ndarray, *, green_kubo: bo
         `prep` with ``acfs`` (pieces x lags, internal pressure^2) and/or ``helfand_msd``
         (pieces x lags, viscosity x time, internal units) set.
     """
-    acfs, msds = [], []
-    for pc in prep.pieces:
-        a, m = _piece_sums(pc, weights, prep.max_lag, prep.dt, green_kubo, einstein)
-        acfs.append(a)
-        msds.append(m)
+    # one piece per thread (FFTs and array work release the GIL): memory is one chunk's
+    # work per thread
+    res = thread_map(lambda pc: _piece_sums(pc, weights, prep.max_lag, prep.dt, green_kubo,
+                                            einstein), prep.pieces)
+    acfs = [a for a, _ in res]
+    msds = [m for _, m in res]
     shape = (len(prep.pieces), prep.max_lag + 1)
     return replace(
         prep,
