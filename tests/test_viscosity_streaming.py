@@ -65,6 +65,17 @@ def test_stream_equals_in_memory_one_run(monkeypatch, chunk, components):
     _same(a.einstein, b.einstein)
 
 
+def test_stream_long_lag_path_equals_in_memory(monkeypatch):
+    # lags above LONG_LAG: one correlator per component, blocks of 2 max_lag, pieces in turn
+    monkeypatch.setattr(vstream, "CHUNK", 30_000)
+    monkeypatch.setattr(vstream, "LONG_LAG", 10)
+    s = StressSeries(MODEL.sample(150_000, DT, np.random.default_rng(4)), DT, V, KT, "lj")
+    a = analyse_viscosity(s, method="both", skip=None)
+    b = analyse_viscosity(s, method="both", skip=None, stream=True)
+    _same(a.green_kubo, b.green_kubo)
+    _same(a.einstein, b.einstein)
+
+
 def test_stream_equals_in_memory_replicas_offset_and_given_cutoff(monkeypatch):
     # two replicas of unequal length, a nonzero mean shear stress (the offset path) and a
     # given cutoff and fit window

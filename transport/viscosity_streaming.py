@@ -47,10 +47,41 @@ from ._pieces import _TRACELESS, _Piece, _Prepared
 from ._threads import thread_map
 from .stats import StreamingCorrelator
 
-__all__ = ["CHUNK", "streamed_preparation"]
+__all__ = ["CHUNK", "LONG_LAG", "streamed_preparation"]
 
 #: Samples per chunk read from a piece (6 rows x 2^20 float64 = 48 MB per chunk copy).
 CHUNK = 1 << 20
+
+
+#: Lags above which each component is transformed alone, in blocks of 2 max_lag new samples,
+#: and the pieces are correlated one after the other: the padded FFT of a block is then
+#: 4 max_lag points of one component, not 6 max_lag points of all six (at 10^8 rows a
+#: slow stress tail gave max_lag = 2.5x10^6 samples: 6 x 15x10^6-point transforms in each
+#: of two threads, about 4 GB).
+LONG_LAG = 1 << 14
+
+
+def _block_size(max_lag: int) -> int | None:
+    """New samples per FFT block: the correlator's default for short lags, else 2 max_lag
+    (work per sample 2x the default's, memory a third)."""
+    return None if max_lag <= LONG_LAG else 2 * max_lag
+
+
+class _Each:
+    """One :class:`StreamingCorrelator` per component (FFT work memory of one series)."""
+
+    def __init__(self, c: int, k: int, normalization: str, subtract_mean: bool,
+                 block: int | None) -> None:
+        self.parts = [StreamingCorrelator(1, k, normalization=normalization,  # type: ignore[arg-type]
+                                          subtract_mean=subtract_mean, block_size=block,
+                                          workers=1) for _ in range(c)]
+
+    def update(self, y: np.ndarray) -> None:
+        for part, row in zip(self.parts, y, strict=True):
+            part.update(row[None, :])
+
+    def result(self) -> np.ndarray:
+        return np.concatenate([part.result() for part in self.parts])
 
 
 def _piece_sums(pc: _Piece, weights: np.ndarray, max_lag: int, dt: float,
@@ -64,10 +95,9 @@ def _piece_sums(pc: _Piece, weights: np.ndarray, max_lag: int, dt: float,
     n = pc.stress[0].shape[0]
     k = max_lag
     c = len(used)
-    acorr = StreamingCorrelator(c, k, normalization="pairs", subtract_mean=False,
-                                workers=1) if green_kubo else None
-    gcorr = StreamingCorrelator(c, k, normalization="none", subtract_mean=True,
-                                workers=1) if einstein else None
+    block = _block_size(k)
+    acorr = _Each(c, k, "pairs", False, block) if green_kubo else None
+    gcorr = _Each(c, k, "none", True, block) if einstein else None
     g_last = np.zeros(c)
     y_last: np.ndarray | None = None
     shift: np.ndarray | None = None
@@ -144,7 +174,8 @@ def streamed_preparation(prep: _Prepared, weights: np.ndarray, *, green_kubo: bo
     # one piece per thread (FFTs and array work release the GIL): memory is one chunk's
     # work per thread
     res = thread_map(lambda pc: _piece_sums(pc, weights, prep.max_lag, prep.dt, green_kubo,
-                                            einstein), prep.pieces)
+                                            einstein), prep.pieces,
+                     workers=1 if prep.max_lag > LONG_LAG else None)
     acfs = [a for a, _ in res]
     msds = [m for _, m in res]
     shape = (len(prep.pieces), prep.max_lag + 1)
