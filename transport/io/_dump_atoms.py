@@ -211,7 +211,7 @@ def dump_universe(path: Path) -> tuple[Any, str]:
     u.add_TopologyAttr("names", types)
     u.add_TopologyAttr("resids", resids)
     if mol is not None:
-        u.add_TopologyAttr("molnums", mol)
+        u.add_TopologyAttr("molnums", resids)  # a residue attribute: one per molecule
     if "q" in cols:
         u.add_TopologyAttr("charges", column("q", float)[order])
     elements = None

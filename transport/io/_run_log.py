@@ -15,7 +15,7 @@ beside a dump.
 from __future__ import annotations
 
 import re
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 from ..errors import InputError
@@ -23,7 +23,7 @@ from ._scan import DEFAULT_TIMESTEP
 
 __all__ = ["RunSettings", "find_run_log", "log_settings"]
 
-_CMD = re.compile(rb"^[ \t]*(units|timestep|dump|dump_modify|undump|run|rerun|clear)[ \t]"
+_CMD = re.compile(rb"^[ \t]*(units|timestep|mass|dump|dump_modify|undump|run|rerun|clear)[ \t]"
                   rb"[^\n]*", re.MULTILINE)
 _BLOCK = 1 << 25
 _COMPRESSED = ("", ".gz", ".bz2", ".xz")
@@ -43,6 +43,7 @@ class RunSettings:
     timestep_line: int | None  # None with a value: the style's default
     dump_every: int | None
     dump_line: int | None
+    masses: dict[str, float] = field(default_factory=dict)  # ``mass TYPE M`` commands
 
     def describe(self) -> str:
         """``units real (line 3), timestep 2 (line 12), dump every 500 steps (line 40)``."""
@@ -91,6 +92,7 @@ def log_settings(path: Path, trajectory: Path | None = None) -> RunSettings:
     units: tuple[str, int] | None = None
     timestep: tuple[float, int | None] | None = None
     dumps: dict[str, tuple[str, int, int]] = {}  # id -> (file, every, line)
+    masses: dict[str, float] = {}
     active: set[str] = set()
     at_runs: dict[str, list[tuple[tuple | None, tuple | None, int]]] = {}
     last_run: tuple[tuple | None, tuple | None, int] | None = None
@@ -118,6 +120,9 @@ def log_settings(path: Path, trajectory: Path | None = None) -> RunSettings:
                             timestep = (float(toks[1]), line)
                         except ValueError:
                             pass  # an unexpanded variable
+                    elif cmd == "mass" and len(toks) == 3 and toks[1].isdigit():
+                        with _suppress_value_error():
+                            masses[toks[1]] = float(toks[2])
                     elif cmd == "dump" and len(toks) >= 6:
                         try:
                             dumps[toks[1]] = (toks[5], int(toks[4]), line)
@@ -141,6 +146,7 @@ def log_settings(path: Path, trajectory: Path | None = None) -> RunSettings:
                             at_runs.setdefault(d, []).append((units, ts, line))
                     elif cmd == "clear":
                         units, timestep = None, None
+                        masses = {}
                 line0 = line + data.count(b"\n", pos)
                 if not chunk:
                     break
@@ -175,7 +181,8 @@ def log_settings(path: Path, trajectory: Path | None = None) -> RunSettings:
     return RunSettings(path, None if u_set is None else u_set[0],
                        None if u_set is None else u_set[1],
                        None if t_set is None else t_set[0],
-                       None if t_set is None else t_set[1], every, dline)
+                       None if t_set is None else t_set[1], every, dline,
+                       {k: v for k, v in masses.items() if v > 0})
 
 
 def _said(u: tuple | None, t: tuple | None) -> str:

@@ -222,9 +222,10 @@ def load_trajectory(
     paths = [_check_file(t, "trajectory") for t in trajs]
     mass_map = parse_masses(masses)
     settings_notes: list[str] = []
+    log_masses: dict[str, float] = {}
     if log is not None:
-        units, timestep = _from_log(_check_file(log, "log"), paths[0], units, timestep,
-                                    frame_interval, settings_notes)
+        units, timestep, log_masses = _from_log(_check_file(log, "log"), paths[0], units,
+                                                timestep, frame_interval, settings_notes)
     _ask_missing(paths, units, timestep, frame_interval)
     unit_sys = None if units is None else get_unit_system(units)
     reduced = bool(unit_sys is not None and unit_sys.reduced)
@@ -244,7 +245,7 @@ def load_trajectory(
         try:
             return _series_from(
                 u, atoms_file, paths, links, mass_map=mass_map, mass_source=mass_source,
-                settings_notes=settings_notes,
+                settings_notes=settings_notes, log_masses=log_masses,
                 select=select, group_by=group_by, unwrap=unwrap,
                 unit_sys=unit_sys, reduced=reduced, timestep=timestep,
                 frame_interval=frame_interval, skip=skip, temperature=temperature,
@@ -259,9 +260,9 @@ def load_trajectory(
 
 def _from_log(log: Path, first: Path, units: str | UnitSystem | None,
               timestep: float | None, frame_interval: float | None, notes: list[str]
-              ) -> tuple[str | UnitSystem | None, float | None]:
-    """`units` and `timestep`, completed from the run's log; what was taken goes to
-    `notes`."""
+              ) -> tuple[str | UnitSystem | None, float | None, dict[str, float]]:
+    """`units` and `timestep`, completed from the run's log, and the log's ``mass``
+    commands; what was taken goes to `notes`."""
     from ._run_log import log_settings
 
     rs = log_settings(log, first)
@@ -291,7 +292,7 @@ def _from_log(log: Path, first: Path, units: str | UnitSystem | None,
         taken.append(f"dump every {rs.dump_every} steps (line {rs.dump_line})")
     notes.append(f"run settings from {log}: " + (", ".join(taken) if taken else
                                                   "none needed"))
-    return units, timestep
+    return units, timestep, rs.masses
 
 
 def _ask_missing(paths: list[Path], units: str | UnitSystem | None,
@@ -321,7 +322,7 @@ def _ask_missing(paths: list[Path], units: str | UnitSystem | None,
 
 def _series_from(u: Any, top: Path, paths: list[Path], links: _PrivateLinks, *,
                  mass_map: dict[str, float], mass_source: str | None,
-                 settings_notes: list[str], select: str,
+                 settings_notes: list[str], log_masses: dict[str, float], select: str,
                  group_by: str, unwrap: str, unit_sys: UnitSystem | None,
                  reduced: bool, timestep: float | None, frame_interval: float | None,
                  skip: float, temperature: float | None, continuation: bool,
@@ -347,7 +348,8 @@ def _series_from(u: Any, top: Path, paths: list[Path], links: _PrivateLinks, *,
                          expected="at least one atom",
                          fix="check the selection against the names/types in the topology")
     notes: list[str] = list(settings_notes)
-    masses_raw = _atom_masses(u, top, sel, group_by, mass_map, mass_source, notes)
+    masses_raw, masses_known = _atom_masses(u, top, sel, group_by, mass_map, log_masses,
+                                            mass_source, notes)
     particles = _build_particles(u, sel, group_by, select, masses_raw, str(top))
     if particles.n == 1 and particles.atoms_per_particle[0] > 1:
         raise InputError(
@@ -368,13 +370,16 @@ def _series_from(u: Any, top: Path, paths: list[Path], links: _PrivateLinks, *,
             temperature=temperature, want_velocities=velocities, memory_limit=memory_limit,
             scratch_dir=scratch_dir, progress=progress, masses_all=masses_raw,
             mass_factor=mass_factor, notes=tuple(notes),
+            kinetic_temperature=masses_known or reduced,
         ))
     return out
 
 
 def _atom_masses(u: Any, top: Path, sel: Any, group_by: str, mass_map: dict[str, float],
-                 mass_source: str | None, notes: list[str]) -> np.ndarray:
-    """Mass of every atom (engine mass unit): the topology's, with `mass_map` per type.
+                 log_masses: dict[str, float], mass_source: str | None, notes: list[str]
+                 ) -> tuple[np.ndarray, bool]:
+    """Mass of every atom (engine mass unit) and whether all are known: the topology's,
+    with `mass_map` per type, and the log's ``mass`` commands for types still without one.
 
     Unknown masses are refused when centres of mass need them (``residue``, ``molecule``);
     for single atoms they serve only the drift removal, where equal weights are used, with
@@ -398,6 +403,11 @@ def _atom_masses(u: Any, top: Path, sel: Any, group_by: str, mass_map: dict[str,
         notes.append(f"masses of type(s) {', '.join(sorted(mass_map, key=_type_key))} from "
                      "--masses")
     m = np.where(np.isfinite(m) & (m > 0), m, 0.0)
+    from_log = sorted({t for t in types[m <= 0].tolist() if t in log_masses}, key=_type_key)
+    for t in from_log:
+        m[types == t] = log_masses[t]
+    if from_log:
+        notes.append(f"masses of type(s) {', '.join(from_log)} from the log's mass commands")
     sel_idx = np.asarray(sel.indices, dtype=np.intp)
     unknown = m[sel_idx] <= 0
     if np.any(unknown) and group_by in ("residue", "molecule"):
@@ -410,13 +420,15 @@ def _atom_masses(u: Any, top: Path, sel: Any, group_by: str, mass_map: dict[str,
             expected="a mass for every selected atom",
             fix="pass --masses " + ",".join(f"{t}=MASS" for t in kinds[:6]) +
                 " (engine mass unit, g/mol for real and metal), or dump the mass column")
+    known = bool(np.all(m > 0))
     if not np.any(m > 0):
         m = np.ones(u.atoms.n_atoms)
-        notes.append("the topology has no masses: all atoms weigh the same for centres of "
-                     "mass and drift removal")
+        notes.append("the atoms have no masses: all weigh the same for the drift removal, "
+                     "and the temperature is not taken from the velocities of a run in "
+                     "physical units (give --masses or --temperature)")
     elif mass_source and not mass_map:
         notes.append(f"masses from the dump's {mass_source}")
-    return m
+    return m, known
 
 
 def positions_from_arrays(
