@@ -444,6 +444,14 @@ def _open_atoms(top: Path | None, first: Path, reduced: bool, links: _PrivateLin
                                       "and type columns, GRO, PDB, ...) or a topology",
             fix=(f"install the package MDAnalysis needs for this format: pip install "
                  f"{package}" if package else fix))
+    if message is None and not _has_atom_kinds(u):
+        # MDAnalysis opens a coordinates-only file with a minimal topology: atoms, no kinds
+        _close_reader(u)
+        raise InputError(
+            "the trajectory cannot describe its atoms on its own (this format stores "
+            "coordinates only)", path=str(first),
+            expected="a file that lists its atoms (a LAMMPS dump with id and type columns, "
+                     "GRO, PDB, ...) or a topology", fix=fix)
     if len(u.trajectory) < 2:
         _close_reader(u)
         raise InputError(
@@ -451,6 +459,17 @@ def _open_atoms(top: Path | None, first: Path, reduced: bool, links: _PrivateLin
             path=str(first), expected="a trajectory of several frames",
             fix="give it first, as the topology, then the trajectory files")
     return u, first, None
+
+
+def _has_atom_kinds(u: Any) -> bool:
+    """True if the atoms have types or names (not MDAnalysis's minimal topology)."""
+    for attr in ("types", "names"):
+        try:
+            getattr(u.atoms, attr)
+            return True
+        except Exception:  # MDAnalysis NoDataError
+            continue
+    return False
 
 
 def _close_reader(u: Any) -> None:
