@@ -238,3 +238,43 @@ def test_log_that_is_not_a_log(tmp_path):
     p.write_text("hello\n")
     with pytest.raises(InputError, match="not a LAMMPS log"):
         log_settings(p)
+
+
+# ---- other self-describing formats, as MDAnalysis reads them ---------------------------
+
+def test_multiframe_pdb_alone_equals_the_two_argument_form(tmp_path):
+    from transport.synthetic import brownian_positions
+
+    rng = np.random.default_rng(715)
+    x = brownian_positions(40, 30, 1.0, 0.05, 30.0, rng)  # frames x atoms x 3, Angstrom
+    p = tmp_path / "walk.pdb"
+    lines = []
+    for k, frame in enumerate(x):  # PDB fixed columns, a box (CRYST1) in every model
+        lines += ["CRYST1   30.000   30.000   30.000  90.00  90.00  90.00 P 1           1",
+                  f"MODEL     {k + 1:4d}"]
+        lines += [f"ATOM  {i + 1:5d}  AR  ARG X   1    {a:8.3f}{b:8.3f}{c:8.3f}  1.00  0.00"
+                  f"          AR" for i, (a, b, c) in enumerate(frame)]
+        lines.append("ENDMDL")
+    p.write_text("\n".join(lines) + "\nEND\n")
+    alone = load_trajectory(None, p, frame_interval=1.0, velocities=False)[0]
+    both = load_trajectory(p, p, frame_interval=1.0, velocities=False)[0]
+    # the same file read the same way: identical arrays (not a statistical agreement)
+    assert alone.positions.shape == (40, 30, 3)
+    np.testing.assert_array_equal(alone.positions, both.positions)
+    # against the written (wrapped) coordinates unwrapped here by minimum-image steps in
+    # plain numpy (PDB keeps 3 decimals: 5e-4 A), drift removed on both sides with equal
+    # masses
+    xr = np.round(x, 3)
+    step = np.diff(xr, axis=0)
+    step -= 30.0 * np.round(step / 30.0)
+    ref = np.concatenate([xr[:1], xr[:1] + np.cumsum(step, axis=0)])
+    ref -= ref.mean(axis=1, keepdims=True)
+    got = np.asarray(alone.positions, np.float64) / 1e-10
+    got -= got.mean(axis=1, keepdims=True)
+    np.testing.assert_allclose(got, ref, atol=1e-3)
+
+
+def test_single_frame_gro_alone_is_refused():
+    datafiles = pytest.importorskip("MDAnalysisTests.datafiles")
+    line = _one_line_error(run(["diffusion", datafiles.GRO]))
+    assert "one frame" in line and "give it first, as the topology" in line

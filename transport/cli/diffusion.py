@@ -16,6 +16,7 @@ from ._shared import (
     finish,
     json_option,
     load_stress_files,
+    note,
     parse_target_option,
     parse_time,
     plot_option,
@@ -204,6 +205,9 @@ def run_diffusion(ctx: click.Context, files: tuple[str, ...], *,
     if log is None:
         log = trajectory_log(trajectories[0], units=units, timestep=timestep,
                              frame_interval=frame_interval)
+        if log is not None:
+            note(ctx, f"transport: note: settings missing for the dump are read from {log}, "
+                      "found beside it (give --log FILE to choose another)")
     check_distinct(stress_files)
     ts = 1.0 if units is not None and get_unit_system(units).reduced else 1e12
     window = _diffusion_window(fit_window, ts)
