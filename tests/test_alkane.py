@@ -61,7 +61,8 @@ def test_decorrelation_time_follows_the_slow_tail(analysis):
 
 def test_green_kubo_einstein_and_plateau_agree(analysis):
     gk, ei = analysis.green_kubo, analysis.einstein
-    # measured: GK 0.231 +- 0.014 (cutoff 38 ps), Einstein 0.229 +- 0.018 mPa s
+    # measured: GK 0.231 +- 0.041 (cutoff 38 ps; 0.014 with the cutoff and fit held fixed),
+    # Einstein 0.229 +- 0.018 mPa s
     both = math.hypot(gk.stderr, ei.stderr)
     assert abs(gk.value - ei.value) < 2 * both  # two independent-ish estimators, 95%
     # the running integral itself at 20 ps (measured 0.245 +- 0.017): the automatic value
@@ -73,8 +74,23 @@ def test_green_kubo_einstein_and_plateau_agree(analysis):
     # the old rule gives 0.159 +- 0.007 on these data (measured; see the control below),
     # 0.082 on the system; 0.19 is 3 stated errors below the automatic values
     assert gk.value > 0.19 and ei.value > 0.19
-    # the error bar is not hollow either: 2 ns of 600 sites gives several per cent
-    assert 0.02 < gk.stderr / gk.value < 0.15
+    # the error bar is neither hollow nor huge: three independent 2 ns runs of this system
+    # (this one and two halves of a 4 ns run with another seed, measured 2026-12-05) gave
+    # 0.231, 0.197, 0.179, a scatter of 0.026 (12%); the jackknife of 20 pieces is itself
+    # uncertain by tens of per cent, and here the cutoff moves with the data (measured 18%)
+    assert 0.05 < gk.stderr / gk.value < 0.30
+
+
+def test_green_kubo_error_bar_follows_the_moving_cutoff(analysis):
+    # On this run the automatic cutoff moves by ~14 ps between leave-one-out sets, and
+    # holding it fixed gave an error bar 2.9x smaller (0.014) that three independent runs
+    # contradict (chi^2 = 10.4 for 2 dof, p = 0.006; with the reported errors 2.1, p = 0.35;
+    # measured 2026-12-05). The reported error bar must include that movement and say so.
+    gk = analysis.green_kubo
+    lo, hi = gk.diagnostics["jackknife_cutoff_range"]
+    assert hi - lo > 5.0  # ps; measured 13.6
+    assert gk.stderr > 2.0 * gk.diagnostics["stderr_fixed_cutoff"]
+    assert any("move with the data" in w for w in gk.warnings)
 
 
 def test_control_bond_vibration_time_scale_fails(series, analysis, monkeypatch):
