@@ -104,22 +104,45 @@ def test_control_bond_vibration_time_scale_fails(series, analysis, monkeypatch):
     assert gk.diagnostics["still_rising"]
 
 
-def test_green_kubo_error_bar_passes_the_time_block_test(series):
-    # 8 independent blocks of 250 ps, each analysed on its own; chi^2 of the block values
-    # about their weighted mean with the stated errors must lie in the central 95% band of
-    # chi^2 with 7 dof (scipy); measured chi^2/dof = 1.40. Power: an error bar 2x too small
-    # multiplies chi^2 by 4 (to ~39, far above the 16.0 upper bound).
+@pytest.fixture(scope="module")
+def blocks(series):
+    """Both estimators on 8 independent blocks of 250 ps, each analysed on its own."""
     k = 8
     n = series.n // k
-    vals, ses = [], []
+    out = {"green_kubo": [], "einstein": []}
     for j in range(k):
         sb = StressSeries(series.pressure[:, j * n:(j + 1) * n].copy(), series.dt,
                           series.volume, series.temperature, series.units)
-        e = analyse_viscosity(sb, skip=None).green_kubo
-        vals.append(e.value)
-        ses.append(e.stderr)
-    v, s = np.array(vals), np.array(ses)
-    w = 1 / s**2
-    chi2 = float(np.sum(w * (v - np.sum(w * v) / np.sum(w)) ** 2))
-    lo, hi = stats.chi2.ppf([0.025, 0.975], k - 1)
+        res = analyse_viscosity(sb, skip=None, method="both")
+        for e in (res.green_kubo, res.einstein):
+            out[e.method].append((e.value, e.stderr))
+    return {m: np.array(v).T for m, v in out.items()}
+
+
+def _block_chi2(values: np.ndarray, stderrs: np.ndarray) -> float:
+    w = 1 / stderrs**2
+    return float(np.sum(w * (values - np.sum(w * values) / np.sum(w)) ** 2))
+
+
+def test_green_kubo_error_bar_passes_the_time_block_test(blocks):
+    # chi^2 of the 8 block values about their weighted mean with the stated errors must lie
+    # in the central 95% band of chi^2 with 7 dof (scipy); measured chi^2/dof = 1.14 (with
+    # the whole-rule jackknife; 1.40 before). Power: an error bar 2x too small multiplies
+    # chi^2 by 4 (to ~32, far above the 16.0 upper bound).
+    v, s = blocks["green_kubo"]
+    chi2 = _block_chi2(v, s)
+    lo, hi = stats.chi2.ppf([0.025, 0.975], v.size - 1)
+    assert lo < chi2 < hi, (v, s, chi2)
+
+
+@pytest.mark.xfail(strict=True, reason=(
+    "known limit (DEVELOPERS.md, 'Open: the Einstein viscosity on short pieces'): in 250 ps "
+    "blocks the Helfand window (3-6 ps) lies before the slow stress relaxation has decayed, "
+    "so values are low and scatter 3.2x the stated variance (chi^2/dof = 3.22, p = 0.002)"))
+def test_einstein_error_bar_passes_the_time_block_test(blocks):
+    # the same test as for Green–Kubo; strict: it must start passing when the window rule is
+    # fixed, and then this mark goes
+    v, s = blocks["einstein"]
+    chi2 = _block_chi2(v, s)
+    lo, hi = stats.chi2.ppf([0.025, 0.975], v.size - 1)
     assert lo < chi2 < hi, (v, s, chi2)
