@@ -278,3 +278,23 @@ def test_single_frame_gro_alone_is_refused():
     datafiles = pytest.importorskip("MDAnalysisTests.datafiles")
     line = _one_line_error(run(["diffusion", datafiles.GRO]))
     assert "one frame" in line and "give it first, as the topology" in line
+
+
+def test_element_column_gives_masses_and_formula_names(tmp_path):
+    p = tmp_path / "ch.lammpstrj"
+    rows = [(1, 1, 1, "C", 0.5, 0.5, 0.5), (2, 1, 2, "H", 1.5, 0.5, 0.5),
+            (3, 2, 1, "C", 5.5, 5.5, 5.5), (4, 2, 2, "H", 6.5, 5.5, 5.5)]
+    text = []
+    for f in range(3):
+        text += ["ITEM: TIMESTEP", str(10 * f), "ITEM: NUMBER OF ATOMS", "4",
+                 "ITEM: BOX BOUNDS pp pp pp", "0 10", "0 10", "0 10",
+                 "ITEM: ATOMS id mol type element x y z"]
+        text += [" ".join(str(v) for v in r) for r in rows]
+    p.write_text("\n".join(text) + "\n")
+    s = load_trajectory(None, p, units="real", timestep=1.0, group_by="molecule",
+                        velocities=False)[0]
+    # standard atomic weights of MDAnalysis's table (C 12.011, H 1.008) and the Hill
+    # formula of the molecule (C first, then H; common practice)
+    assert s.species_names == ("CH",)
+    assert s.masses == pytest.approx(np.full(2, 13.019 * 1.66053906660e-27), rel=1e-12)
+    assert "masses from the dump's element column" in s.warnings
