@@ -298,3 +298,18 @@ def test_element_column_gives_masses_and_formula_names(tmp_path):
     assert s.species_names == ("CH",)
     assert s.masses == pytest.approx(np.full(2, 13.019 * 1.66053906660e-27), rel=1e-12)
     assert "masses from the dump's element column" in s.warnings
+
+
+def test_lammps_dcd_takes_its_units_from_the_run_log():
+    # hexane.log.xz: `units real` (line 5), `timestep 1.0` (line 52) while compressing, then
+    # `timestep 2.0` (line 127), `dump traj all dcd 500 hexane_wrapped.dcd` (line 325),
+    # checked by hand with xzcat | grep; the time step in force at the dump's run is 2 fs
+    log = DATA / "alkane" / "hexane.log.xz"
+    dcd = DATA / "alkane" / "hexane_wrapped.dcd"
+    rs = log_settings(log, dcd)
+    assert (rs.units, rs.units_line, rs.timestep, rs.timestep_line) == ("real", 5, 2.0, 127)
+    assert (rs.dump_every, rs.dump_line) == (500, 325)
+    s = load_trajectory(HEXANE_DATA, dcd, log=log, velocities=False, skip=1.9e-9)[0]
+    # DCD header: 500 steps between frames x the header's 2 (fs, the log's units) = 1 ps
+    assert s.units.name == "real"
+    assert s.dt == pytest.approx(1e-12, rel=1e-9)

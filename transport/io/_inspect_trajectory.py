@@ -68,7 +68,6 @@ def inspect_trajectory(path: str | os.PathLike[str], *, units: str | None = None
     import MDAnalysis as mda
 
     from ._dump_atoms import dump_universe, is_dump
-    from ._run_log import find_run_log
     from ._universe import (
         _check_file,
         _dump_info,
@@ -79,15 +78,15 @@ def inspect_trajectory(path: str | os.PathLike[str], *, units: str | None = None
         _mda_call,
         _PrivateLinks,
     )
-    from .trajectory import _from_log
+    from .trajectory import _from_log, trajectory_log
 
     p = _check_file(path, "trajectory")
     dumped = is_dump(p)
     rec: dict[str, Any] = {"file": str(p), "notes": []}
     notes: list[str] = rec["notes"]
-    log_path = Path(log) if log is not None else (
-        find_run_log(p) if dumped and (units is None or (timestep is None and
-                                                          frame_interval is None)) else None)
+    found = None if log is not None else trajectory_log(
+        p, units=units, timestep=timestep, frame_interval=frame_interval)
+    log_path = Path(log) if log is not None else (None if found is None else Path(found))
     log_masses: dict[str, float] = {}
     timestep_given = timestep is not None
     if log_path is not None:

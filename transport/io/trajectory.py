@@ -94,14 +94,20 @@ def trajectory_log(trajectory: str | os.PathLike[str], *, units: object = None,
                    timestep: float | None = None, frame_interval: float | None = None
                    ) -> str | None:
     """The ``log.lammps`` beside a LAMMPS dump, when the dump's units or time step are not
-    given (None otherwise, or when there is none)."""
+    given, or beside a DCD written by LAMMPS, when its units are not given (None otherwise,
+    or when there is none)."""
+    from ._dcd import _lammps_dcd
     from ._dump_atoms import is_dump
     from ._run_log import find_run_log
 
     p = Path(trajectory)
-    if not p.is_file() or not is_dump(p):
+    if not p.is_file():
         return None
-    if units is not None and (timestep is not None or frame_interval is not None):
+    if is_dump(p):
+        if units is not None and (timestep is not None or frame_interval is not None):
+            return None
+    elif not (p.suffix.lower() == ".dcd" and units is None and timestep is None
+              and frame_interval is None and _lammps_dcd(p) is not None):
         return None
     found = find_run_log(p)
     return None if found is None else str(found)
