@@ -105,8 +105,10 @@ def test_argon_dump_alone_takes_units_and_timestep_from_the_log_beside_it(argon_
     doc = json.loads(out.read_text())
     r = doc["results"][0]
     assert r["unit"] == "1e-9 m^2/s"
+    # what was taken from the log is a note (not a warning), with the lines it came from
     assert any("run settings from" in w and "units real (line 5)" in w
-               and "timestep 4 (line 23)" in w for w in r["warnings"])
+               and "timestep 4 (line 23)" in w for w in r["notes"])
+    assert not any("run settings" in w for w in r["warnings"])
     # dump every 50 steps of 4 fs: frames 0.2 ps apart
     assert r["diagnostics"]["frame_interval"] == pytest.approx(0.2, rel=1e-12)
     # masses from the log's `mass 1 39.948`: the kinetic temperature (3N - 3 dof, as the
@@ -313,3 +315,14 @@ def test_lammps_dcd_takes_its_units_from_the_run_log():
     # DCD header: 500 steps between frames x the header's 2 (fs, the log's units) = 1 ps
     assert s.units.name == "real"
     assert s.dt == pytest.approx(1e-12, rel=1e-9)
+
+
+def test_log_of_another_run_is_flagged_by_its_dump_interval(argon_dir):
+    # the same log with `dump ... custom 25` instead of 50: frames are 50 steps apart
+    text = ARGON_LOG.read_text().replace("all custom 50 argon", "all custom 25 argon")
+    (argon_dir / "other.log").write_text(text)
+    s = load_trajectory(None, argon_dir / ARGON.name, log=argon_dir / "other.log",
+                        velocities=False)[0]
+    assert any("50 steps apart" in w and "every 25" in w for w in s.warnings)
+    ok = load_trajectory(None, argon_dir / ARGON.name, log=ARGON_LOG, velocities=False)[0]
+    assert not any("steps apart" in w for w in ok.warnings)

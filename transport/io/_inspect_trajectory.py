@@ -90,8 +90,8 @@ def inspect_trajectory(path: str | os.PathLike[str], *, units: str | None = None
     log_masses: dict[str, float] = {}
     timestep_given = timestep is not None
     if log_path is not None:
-        units, timestep, log_masses = _from_log(_check_file(log_path, "log"), p, units,
-                                                timestep, frame_interval, notes)
+        units, timestep, log_masses, _ = _from_log(_check_file(log_path, "log"), p, units,
+                                                   timestep, frame_interval, notes)
         rec["log"] = str(log_path)
     unit_sys = None if units is None else get_unit_system(units)
     reduced = bool(unit_sys is not None and unit_sys.reduced)

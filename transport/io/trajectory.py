@@ -49,7 +49,7 @@ import numpy as np
 from numpy.typing import ArrayLike
 
 from ..checks import temperature_plausible
-from ..errors import InputError
+from ..errors import InputError, Note
 from ..series import PositionSeries
 from ..units import UnitSystem, get_unit_system
 from ._collect import _Collector, _read_series
@@ -229,9 +229,11 @@ def load_trajectory(
     mass_map = parse_masses(masses)
     settings_notes: list[str] = []
     log_masses: dict[str, float] = {}
+    log_every: tuple[int, int | None, str] | None = None
     if log is not None:
-        units, timestep, log_masses = _from_log(_check_file(log, "log"), paths[0], units,
-                                                timestep, frame_interval, settings_notes)
+        units, timestep, log_masses, log_every = _from_log(
+            _check_file(log, "log"), paths[0], units, timestep, frame_interval,
+            settings_notes)
     _ask_missing(paths, units, timestep, frame_interval)
     unit_sys = None if units is None else get_unit_system(units)
     reduced = bool(unit_sys is not None and unit_sys.reduced)
@@ -249,7 +251,7 @@ def load_trajectory(
     with _PrivateLinks(scratch) as links:
         u, atoms_file, mass_source = _open_atoms(top, paths[0], reduced, links)
         try:
-            return _series_from(
+            out = _series_from(
                 u, atoms_file, paths, links, mass_map=mass_map, mass_source=mass_source,
                 settings_notes=settings_notes, log_masses=log_masses,
                 select=select, group_by=group_by, unwrap=unwrap,
@@ -258,6 +260,7 @@ def load_trajectory(
                 continuation=continuation, velocities=velocities,
                 memory_limit=_memory_default() if memory_limit is None else float(memory_limit),
                 scratch_dir=scratch, progress=progress)
+            return _check_dump_interval(out, log_every, timestep, frame_interval)
         finally:
             # close the reader before its private links are deleted
             with contextlib.suppress(Exception):
@@ -266,9 +269,10 @@ def load_trajectory(
 
 def _from_log(log: Path, first: Path, units: str | UnitSystem | None,
               timestep: float | None, frame_interval: float | None, notes: list[str]
-              ) -> tuple[str | UnitSystem | None, float | None, dict[str, float]]:
-    """`units` and `timestep`, completed from the run's log, and the log's ``mass``
-    commands; what was taken goes to `notes`."""
+              ) -> tuple[str | UnitSystem | None, float | None, dict[str, float],
+                         tuple[int, int | None, str] | None]:
+    """`units` and `timestep`, completed from the run's log, the log's ``mass`` commands
+    and its dump interval (steps, line, file name); what was taken goes to `notes`."""
     from ._run_log import log_settings
 
     rs = log_settings(log, first)
@@ -296,9 +300,32 @@ def _from_log(log: Path, first: Path, units: str | UnitSystem | None,
             f" (the default of units {rs.units})"))
     if rs.dump_every is not None:
         taken.append(f"dump every {rs.dump_every} steps (line {rs.dump_line})")
-    notes.append(f"run settings from {log}: " + (", ".join(taken) if taken else
-                                                  "none needed"))
-    return units, timestep, rs.masses
+    notes.append(Note(f"run settings from {log}: " + (", ".join(taken) if taken else
+                                                       "none needed")))
+    every = None if rs.dump_every is None else (rs.dump_every, rs.dump_line, log.name)
+    return units, timestep, rs.masses, every
+
+
+def _check_dump_interval(out: list[PositionSeries],
+                         log_every: tuple[int, int | None, str] | None,
+                         timestep: float | None, frame_interval: float | None
+                         ) -> list[PositionSeries]:
+    """A warning on each series whose frames are not the log's dump interval apart (the
+    log may be of another run)."""
+    import dataclasses
+
+    if log_every is None or timestep is None or frame_interval is not None:
+        return out
+    every, line, name = log_every
+    checked = []
+    for s in out:
+        steps = s.dt / (timestep * (1.0 if s.units.reduced else s.units.time))
+        if abs(steps - every) > 1e-6 * every:
+            s = dataclasses.replace(s, warnings=(*s.warnings, (
+                f"frames are {steps:.6g} steps apart, but the log's dump command says every "
+                f"{every} ({name} line {line}): is the log of this run?")))
+        checked.append(s)
+    return checked
 
 
 def _ask_missing(paths: list[Path], units: str | UnitSystem | None,
@@ -406,14 +433,15 @@ def _atom_masses(u: Any, top: Path, sel: Any, group_by: str, mass_map: dict[str,
                 fix="give masses for the types listed")
         for t, mass in mass_map.items():
             m[types == t] = mass
-        notes.append(f"masses of type(s) {', '.join(sorted(mass_map, key=_type_key))} from "
-                     "--masses")
+        notes.append(Note(f"masses of type(s) {', '.join(sorted(mass_map, key=_type_key))} "
+                          "from --masses"))
     m = np.where(np.isfinite(m) & (m > 0), m, 0.0)
     from_log = sorted({t for t in types[m <= 0].tolist() if t in log_masses}, key=_type_key)
     for t in from_log:
         m[types == t] = log_masses[t]
     if from_log:
-        notes.append(f"masses of type(s) {', '.join(from_log)} from the log's mass commands")
+        notes.append(Note(f"masses of type(s) {', '.join(from_log)} from the log's mass "
+                          "commands"))
     sel_idx = np.asarray(sel.indices, dtype=np.intp)
     unknown = m[sel_idx] <= 0
     if np.any(unknown) and group_by in ("residue", "molecule"):
@@ -433,7 +461,7 @@ def _atom_masses(u: Any, top: Path, sel: Any, group_by: str, mass_map: dict[str,
                      "and the temperature is not taken from the velocities of a run in "
                      "physical units (give --masses or --temperature)")
     elif mass_source and not mass_map:
-        notes.append(f"masses from the dump's {mass_source}")
+        notes.append(Note(f"masses from the dump's {mass_source}"))
     return m, known
 
 
