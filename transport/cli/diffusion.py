@@ -89,7 +89,8 @@ def _parse_viscosity(value: str | None) -> tuple[float, float] | str | None:
 @click.option("--skip", default="0", show_default=True,
               help="Initial time to drop, in ps (tau).")
 @click.option("--units", default=None,
-              help="Unit convention: required for LAMMPS dumps (real, metal, lj, ...); "
+              help="Unit convention: needed for LAMMPS dumps (real, metal, lj, ...) unless "
+                   "--log or a log.lammps beside the dump gives it; "
                    "'lj' keeps reduced units; otherwise it sets the unit of --timestep.")
 @click.option("--timestep", type=float, default=None,
               help="Integration time step (engine time unit, ps by default): frame times "
@@ -148,6 +149,7 @@ def diffusion(ctx: click.Context, files: tuple[str, ...], select: str,
     Two forms:
       transport diffusion TOPOLOGY TRAJECTORY...   (e.g. system.data run.dcd)
       transport diffusion TRAJECTORY...            (files that list their atoms)
+
     One file, or only LAMMPS dumps, need no topology: a dump with id and type columns
     (and mol, mass, element, q when present) gives the atoms from its first frame; GRO,
     PDB and other files MDAnalysis reads alone work too. Otherwise the first file is the
