@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import os
 
 import pytest
 
@@ -43,3 +44,31 @@ def test_missing_dask_says_how_to_install(monkeypatch):
     monkeypatch.setattr(builtins, "__import__", no_dask)
     with pytest.raises(InputError, match=r"fix: pip install 'transport-coefficients\[dask\]'"):
         run_tasks(math.sqrt, ITEMS, names=NAMES, scheduler="tcp://127.0.0.1:8786")
+
+
+def test_pool_workers_get_their_share_of_the_threads(monkeypatch):
+    # each of 2 worker processes is capped at available_cpus() // 2 threads (at least 1),
+    # so the tasks' own thread pools do not oversubscribe the cores
+    from transport._threads import THREADS_ENV, available_cpus
+
+    monkeypatch.delenv(THREADS_ENV, raising=False)
+    monkeypatch.delenv("OMP_NUM_THREADS", raising=False)
+    share = str(max(1, available_cpus() // 2))
+    out = run_tasks(os.getenv, [THREADS_ENV] * 4, names=list("abcd"), workers=2)
+    assert out == [share] * 4
+    # serial runs in this process, which keeps its own budget (no variable set)
+    assert run_tasks(os.getenv, [THREADS_ENV], names=["a"], workers=1) == [None]
+
+
+@pytest.mark.parametrize(("var", "value", "cap"), [
+    ("TRANSPORT_THREADS", "1", 1), ("OMP_NUM_THREADS", "1", 1),
+    ("TRANSPORT_THREADS", "1000", None), ("OMP_NUM_THREADS", "many", None)])
+def test_thread_budget_follows_the_environment(monkeypatch, var, value, cap):
+    from transport._threads import available_cpus
+
+    monkeypatch.delenv("TRANSPORT_THREADS", raising=False)
+    monkeypatch.delenv("OMP_NUM_THREADS", raising=False)
+    cpus = available_cpus()
+    monkeypatch.setenv(var, value)
+    # a cap above the CPUs, or one that is not a number, leaves the CPUs (cap None)
+    assert available_cpus() == (cpus if cap is None else cap)

@@ -10,6 +10,13 @@ order of the tasks:
   cluster (the ``dask`` extra). The workers must see the input files at the same paths
   (a shared file system, as on any cluster).
 
+Local workers are started once per call from a forkserver that has already imported the
+package and numpy / scipy / pandas (so a worker starts in milliseconds, not seconds), and
+each worker is limited to its share of the CPUs (``available_cpus() // workers`` threads,
+:func:`transport._threads.limit_threads`): a task's own threads (Green–Kubo pieces, FFT
+workers) would otherwise oversubscribe the cores. On Dask, a worker's tasks follow
+``OMP_NUM_THREADS``, which Dask sets to 1 in its worker processes by default.
+
 A task that raises does not lose the others: its slot holds a :class:`TaskFailure` naming
 the task and the error, and the caller decides what to do.
 """
@@ -22,12 +29,16 @@ from concurrent.futures import Future, ProcessPoolExecutor, as_completed
 from dataclasses import dataclass
 from typing import Any, TypeVar
 
-from ._threads import available_cpus
+from ._threads import available_cpus, limit_threads
 from .errors import InputError
 
 __all__ = ["TaskFailure", "run_tasks"]
 
 T = TypeVar("T")
+
+#: Modules the forkserver imports once, so that every worker process starts with them.
+PRELOAD = ("numpy", "scipy.fft", "scipy.stats", "pandas", "transport.viscosity",
+           "transport.diffusion", "transport.io", "transport.study_analysis")
 
 INSTALL_DASK = "pip install 'transport-coefficients[dask]' (dask.distributed)"
 
@@ -99,8 +110,9 @@ def run_tasks(fn: Callable[[T], Any], items: Sequence[T], *, names: Sequence[str
                     out[i] = _failure(names[i], exc)
                 bar.update(1)
             return out
-        ctx = multiprocessing.get_context("forkserver")
-        with ProcessPoolExecutor(max_workers=n, mp_context=ctx) as pool:
+        threads = max(1, available_cpus() // n)
+        with ProcessPoolExecutor(max_workers=n, mp_context=_context(),
+                                 initializer=limit_threads, initargs=(threads,)) as pool:
             futs: dict[Future, int] = {pool.submit(fn, x): i for i, x in enumerate(items)}
             for f in as_completed(futs):
                 i = futs[f]
@@ -112,6 +124,14 @@ def run_tasks(fn: Callable[[T], Any], items: Sequence[T], *, names: Sequence[str
         return out
     finally:
         bar.close()
+
+
+def _context() -> Any:
+    """The forkserver context, its server told to preload :data:`PRELOAD` (this takes
+    effect when the server starts, i.e. at the first pool of the process)."""
+    ctx = multiprocessing.get_context("forkserver")
+    ctx.set_forkserver_preload(list(PRELOAD))
+    return ctx
 
 
 def _bar(total: int, progress: bool) -> Any:
