@@ -14,7 +14,10 @@ vs a 2-worker Dask cluster.
   the cluster's start-up is timed apart (a ``--scheduler`` user's cluster is already
   running); the analysis time includes the workers' first imports.
 
-The store is off, so every way analyses every run; the records must be identical. The load
+The same three local ways are then timed end to end as a user runs them: ``transport -q
+compare study.toml --no-store --workers 1`` (with ``TRANSPORT_THREADS=1``, then without)
+and ``--workers 2``, each a fresh process (imports, analysis, pooling, ranking draws,
+output). The store is off, so every way analyses every run; the records must be identical. The load
 average (1 min) is read before and after each row: the machine is shared. The Markdown table
 goes to ``benchmarks/results/study_parallel.md`` (``--out`` to change).
 
@@ -27,6 +30,9 @@ import argparse
 import json
 import os
 import platform
+import shutil
+import subprocess
+import sys
 import tempfile
 import time
 from collections.abc import Callable
@@ -60,6 +66,15 @@ def _single_threaded(study: Any) -> Any:
             os.environ[THREADS_ENV] = old
 
 
+def _cli(manifest: Path, workers: int, threads: str | None) -> None:
+    exe = shutil.which("transport", path=str(Path(sys.executable).parent)) or "transport"
+    env = {k: v for k, v in os.environ.items() if k not in (THREADS_ENV, "OMP_NUM_THREADS")}
+    if threads is not None:
+        env[THREADS_ENV] = threads
+    subprocess.run([exe, "-q", "compare", str(manifest), "--no-store", "--workers",
+                    str(workers)], check=True, env=env, stdout=subprocess.DEVNULL)
+
+
 def main() -> None:
     ap = argparse.ArgumentParser()
     ap.add_argument("--rows", type=float, default=1_000_000)
@@ -71,6 +86,7 @@ def main() -> None:
     cpus = available_cpus()  # now: a LocalCluster sets OMP_NUM_THREADS=1 in this process
     rows_out: list[tuple[str, float, float, float, Any]] = []
     notes: list[str] = []
+    cli_rows: list[tuple[str, float, float, float]] = []
     with tempfile.TemporaryDirectory() as d:
         manifest = write_synthetic_study(
             d, truth={"a": {"T": 5.0}, "b": {"T": 6.0}}, references={"T": (5.0, 0.1)},
@@ -100,6 +116,11 @@ def main() -> None:
                              t, l0, l1, recs))
             notes.append(f"Starting the LocalCluster took a further {t_up:.1f} s "
                          f"(with it: {t + t_up:.1f} s).")
+        for name, w, th in (("CLI `--workers 1`, one thread", 1, "1"),
+                            ("CLI `--workers 1`, threaded", 1, None),
+                            ("CLI `--workers 2` (pool, 1 thread each)", 2, None)):
+            _, t, l0, l1 = _timed(lambda w=w, th=th: _cli(manifest, w, th))
+            cli_rows.append((name, t, l0, l1))
     base1, base_t = rows_out[0][1], rows_out[1][1]
     ref = json.dumps(rows_out[0][4], sort_keys=True)
     lines = [f"# Study analysis: 16 replicas of {rows:,} rows (4 fs) each", "",
@@ -114,6 +135,14 @@ def main() -> None:
         same = json.dumps(recs, sort_keys=True) == ref
         lines.append(f"| {name} | {t:.1f} | {base1 / t:.2f}x | {base_t / t:.2f}x "
                      f"| {l0:.2f} / {l1:.2f} | {same} |")
+    if cli_rows:
+        c1, ct = cli_rows[0][1], cli_rows[1][1]
+        lines += ["", "End to end (`transport compare`, a fresh process each: imports, "
+                  "analysis, comparison, output):", "",
+                  "| command | wall time (s) | vs one thread | vs threaded "
+                  "| load before / after |", "|---|---|---|---|---|"]
+        lines += [f"| {n} | {t:.1f} | {c1 / t:.2f}x | {ct / t:.2f}x | {l0:.2f} / {l1:.2f} |"
+                  for n, t, l0, l1 in cli_rows]
     text = "\n".join([*lines, "", *notes]) + "\n"
     print(text)
     if not a.quick:
