@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import math
 import os
+import types
 
 import pytest
 
@@ -12,6 +13,27 @@ from transport.parallel import TaskFailure, run_tasks
 
 ITEMS = [4.0, -1.0, 9.0]
 NAMES = ["run a", "run b", "run c"]
+
+
+class _Unpicklable(ValueError):
+    def __init__(self, message):
+        super().__init__(message)
+        self.partial = types.MappingProxyType({})  # cannot be pickled (CPython)
+
+
+def _raise_unpicklable(x: float) -> float:
+    if x < 0:
+        raise _Unpicklable(f"negative input {x}")
+    return x
+
+
+@pytest.mark.parametrize("workers", [1, 2])
+def test_exception_that_cannot_be_pickled_keeps_its_message(workers):
+    # the error of the study's too-short runs carries a partial estimate whose mappingproxy
+    # does not pickle: the failure must still name the run and say what went wrong
+    out = run_tasks(_raise_unpicklable, ITEMS, names=NAMES, workers=workers)
+    assert out[0] == 4.0 and out[2] == 9.0
+    assert out[1] == TaskFailure("run b", "_Unpicklable", "negative input -1.0")
 
 
 @pytest.mark.parametrize("workers", [1, 2])

@@ -60,6 +60,16 @@ def _failure(name: str, exc: BaseException) -> TaskFailure:
     return TaskFailure(name, type(exc).__name__, str(exc) or type(exc).__name__)
 
 
+def _call(fn: Callable[[T], Any], name: str, x: T) -> Any:
+    """``fn(x)`` in a worker; an exception becomes a :class:`TaskFailure` there, so that
+    its message comes back even when the exception itself cannot be pickled (one that
+    carries a partial result, say)."""
+    try:
+        return fn(x)
+    except Exception as exc:
+        return _failure(name, exc)
+
+
 def run_tasks(fn: Callable[[T], Any], items: Sequence[T], *, names: Sequence[str],
               workers: int | None = None, scheduler: str | None = None,
               progress: bool = False, timeout: float = 10.0) -> list[Any]:
@@ -113,12 +123,13 @@ def run_tasks(fn: Callable[[T], Any], items: Sequence[T], *, names: Sequence[str
         threads = max(1, available_cpus() // n)
         with ProcessPoolExecutor(max_workers=n, mp_context=_context(),
                                  initializer=limit_threads, initargs=(threads,)) as pool:
-            futs: dict[Future, int] = {pool.submit(fn, x): i for i, x in enumerate(items)}
+            futs: dict[Future, int] = {pool.submit(_call, fn, names[i], x): i
+                                       for i, x in enumerate(items)}
             for f in as_completed(futs):
                 i = futs[f]
                 try:
                     out[i] = f.result()
-                except Exception as exc:
+                except Exception as exc:  # the pool broke, or a result did not pickle
                     out[i] = _failure(names[i], exc)
                 bar.update(1)
         return out
@@ -176,8 +187,8 @@ def _on_dask(fn: Callable[[T], Any], items: Sequence[T], names: Sequence[str],
     bar = _bar(len(items), progress)
     out: list[Any] = [None] * len(items)
     try:
-        futs = [client.submit(fn, x, key=f"transport-{i}-{_key(names[i])}", pure=False)
-                for i, x in enumerate(items)]
+        futs = [client.submit(_call, fn, names[i], x, key=f"transport-{i}-{_key(names[i])}",
+                              pure=False) for i, x in enumerate(items)]
         index = {f.key: i for i, f in enumerate(futs)}
         for f in dask_completed(futs, loop=client.loop):
             i = index[f.key]
