@@ -61,7 +61,8 @@ def test_decorrelation_time_follows_the_slow_tail(analysis):
 
 def test_green_kubo_einstein_and_plateau_agree(analysis):
     gk, ei = analysis.green_kubo, analysis.einstein
-    # measured: GK 0.231 +- 0.014 (cutoff 38 ps), Einstein 0.229 +- 0.018 mPa s
+    # measured: GK 0.231 +- 0.041 (cutoff 38 ps; 0.014 with the cutoff and fit held fixed),
+    # Einstein 0.229 +- 0.018 mPa s
     both = math.hypot(gk.stderr, ei.stderr)
     assert abs(gk.value - ei.value) < 2 * both  # two independent-ish estimators, 95%
     # the running integral itself at 20 ps (measured 0.245 +- 0.017): the automatic value
@@ -73,8 +74,23 @@ def test_green_kubo_einstein_and_plateau_agree(analysis):
     # the old rule gives 0.159 +- 0.007 on these data (measured; see the control below),
     # 0.082 on the issue's system; 0.19 is 3 stated errors below the automatic values
     assert gk.value > 0.19 and ei.value > 0.19
-    # the error bar is not hollow either: 2 ns of 600 sites gives several per cent
-    assert 0.02 < gk.stderr / gk.value < 0.15
+    # the error bar is neither hollow nor huge: three independent 2 ns runs of this system
+    # (this one and two halves of a 4 ns run with another seed, measured 2026-12-05) gave
+    # 0.231, 0.197, 0.179, a scatter of 0.026 (12%); the jackknife of 20 pieces is itself
+    # uncertain by tens of per cent, and here the cutoff moves with the data (measured 18%)
+    assert 0.05 < gk.stderr / gk.value < 0.30
+
+
+def test_green_kubo_error_bar_follows_the_moving_cutoff(analysis):
+    # On this run the automatic cutoff moves by ~14 ps between leave-one-out sets, and
+    # holding it fixed gave an error bar 2.9x smaller (0.014) that three independent runs
+    # contradict (chi^2 = 10.4 for 2 dof, p = 0.006; with the reported errors 2.1, p = 0.35;
+    # measured 2026-12-05). The reported error bar must include that movement and say so.
+    gk = analysis.green_kubo
+    lo, hi = gk.diagnostics["jackknife_cutoff_range"]
+    assert hi - lo > 5.0  # ps; measured 13.6
+    assert gk.stderr > 2.0 * gk.diagnostics["stderr_fixed_cutoff"]
+    assert any("move with the data" in w for w in gk.warnings)
 
 
 def test_control_bond_vibration_time_scale_fails(series, analysis, monkeypatch):
@@ -88,22 +104,45 @@ def test_control_bond_vibration_time_scale_fails(series, analysis, monkeypatch):
     assert gk.diagnostics["still_rising"]
 
 
-def test_green_kubo_error_bar_passes_the_time_block_test(series):
-    # 8 independent blocks of 250 ps, each analysed on its own; chi^2 of the block values
-    # about their weighted mean with the stated errors must lie in the central 95% band of
-    # chi^2 with 7 dof (scipy); measured chi^2/dof = 1.40. Power: an error bar 2x too small
-    # multiplies chi^2 by 4 (to ~39, far above the 16.0 upper bound).
+@pytest.fixture(scope="module")
+def blocks(series):
+    """Both estimators on 8 independent blocks of 250 ps, each analysed on its own."""
     k = 8
     n = series.n // k
-    vals, ses = [], []
+    out = {"green_kubo": [], "einstein": []}
     for j in range(k):
         sb = StressSeries(series.pressure[:, j * n:(j + 1) * n].copy(), series.dt,
                           series.volume, series.temperature, series.units)
-        e = analyse_viscosity(sb, skip=None).green_kubo
-        vals.append(e.value)
-        ses.append(e.stderr)
-    v, s = np.array(vals), np.array(ses)
-    w = 1 / s**2
-    chi2 = float(np.sum(w * (v - np.sum(w * v) / np.sum(w)) ** 2))
-    lo, hi = stats.chi2.ppf([0.025, 0.975], k - 1)
+        res = analyse_viscosity(sb, skip=None, method="both")
+        for e in (res.green_kubo, res.einstein):
+            out[e.method].append((e.value, e.stderr))
+    return {m: np.array(v).T for m, v in out.items()}
+
+
+def _block_chi2(values: np.ndarray, stderrs: np.ndarray) -> float:
+    w = 1 / stderrs**2
+    return float(np.sum(w * (values - np.sum(w * values) / np.sum(w)) ** 2))
+
+
+def test_green_kubo_error_bar_passes_the_time_block_test(blocks):
+    # chi^2 of the 8 block values about their weighted mean with the stated errors must lie
+    # in the central 95% band of chi^2 with 7 dof (scipy); measured chi^2/dof = 1.14 (with
+    # the whole-rule jackknife; 1.40 before). Power: an error bar 2x too small multiplies
+    # chi^2 by 4 (to ~32, far above the 16.0 upper bound).
+    v, s = blocks["green_kubo"]
+    chi2 = _block_chi2(v, s)
+    lo, hi = stats.chi2.ppf([0.025, 0.975], v.size - 1)
+    assert lo < chi2 < hi, (v, s, chi2)
+
+
+@pytest.mark.xfail(strict=True, reason=(
+    "known limit (DEVELOPERS.md, 'Open: the Einstein viscosity on short pieces'): in 250 ps "
+    "blocks the Helfand window (3-6 ps) lies before the slow stress relaxation has decayed, "
+    "so values are low and scatter 3.2x the stated variance (chi^2/dof = 3.22, p = 0.002)"))
+def test_einstein_error_bar_passes_the_time_block_test(blocks):
+    # the same test as for Green–Kubo; strict: it must start passing when the window rule is
+    # fixed, and then this mark goes
+    v, s = blocks["einstein"]
+    chi2 = _block_chi2(v, s)
+    lo, hi = stats.chi2.ppf([0.025, 0.975], v.size - 1)
     assert lo < chi2 < hi, (v, s, chi2)

@@ -4,7 +4,9 @@ real Dask cluster; the results store; one-line refusals of bad manifests."""
 from __future__ import annotations
 
 import json
+import math
 import shutil
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -13,7 +15,7 @@ from click.testing import CliRunner
 from transport._study_data import write_synthetic_study
 from transport.cli import main
 from transport.study import load_study
-from transport.study_analysis import analyse_study
+from transport.study_analysis import analyse_study, compare_study
 
 # Known truth (mPa s): exact Green–Kubo integrals of the synthetic OU stress
 # (transport.synthetic). The reference is model_a's truth; model_b is 20% high, model_c 40%
@@ -123,3 +125,81 @@ def test_bad_manifest_exit_2_one_line_nothing_written(study_copy, edit, key):
     lines = r.output.strip().splitlines()
     assert len(lines) == 1 and f"study.toml: {key}:" in lines[0], r.output
     assert not out.exists() and not (study_copy / "study.results.sqlite").exists()
+
+
+# ---- a study whose runs have trajectories: D corrected with the run's own viscosity -------
+
+DATA = Path(__file__).parent / "data"
+LJ_TOP = DATA / "lj_diffusion" / "lj.data"
+LJ_DCD = DATA / "lj_diffusion" / "lj_diff.dcd"
+LJ_LOGS = sorted((DATA / "lj_viscosity").glob("lj_visc_rep*.log.gz"))
+XI = 2.837297  # Yeh & Hummer, J. Phys. Chem. B 108, 15873 (2004), cubic box
+LJ_BOX = 11.757173  # tests/data/lj_diffusion/README.md (cubic, N = 1372, rho* = 0.8442)
+LJ_T = 0.722
+
+
+def _lj_manifest(folder: Path) -> Path:
+    # the LJ liquid of tests/data (same model and state point in both folders; the
+    # viscosity logs are an 864-atom box, and viscosity hardly depends on box size).
+    # Candidate "two_logs": a run with stress + trajectory and a run with stress only;
+    # candidate "one_log": one run with both. References: Meier, Laesecke & Kabelac,
+    # J. Chem. Phys. 121, 3671 and 9526 (2004) as quoted in tests/data/README.md (eta* =
+    # 3.258; D* = 0.0325 in the periodic box of N = 1372, plus the Yeh-Hummer correction
+    # with eta* = 3.258, i.e. 0.0325 + 0.00284 for the infinite system).
+    runs = {"two_logs": [(LJ_LOGS[0], True), (LJ_LOGS[1], False)],
+            "one_log": [(LJ_LOGS[2], True)]}
+    lines = ['[study]', 'name = "LJ liquid"', "",
+             "[[states]]", 'label = "LJ"', f"temperature = {LJ_T}",
+             "[states.reference.viscosity]", "value = 3.258", "stderr = 0.05",
+             'unit = "reduced (lj)"', 'source = "Meier et al. 2004"',
+             "[states.reference.diffusion]", "value = 0.03534", "stderr = 0.001",
+             'unit = "reduced (lj)"', 'species = "all"', 'source = "Meier et al. 2004"']
+    for name, rs in runs.items():
+        lines += ["", "[[candidates]]", f'name = "{name}"', 'units = "lj"',
+                  "timestep = 0.005"]
+        for log, traj in rs:
+            lines += ["[[candidates.runs]]", 'state = "LJ"', f'stress = "{log}"']
+            if traj:
+                lines += [f'topology = "{LJ_TOP}"', f'trajectory = "{LJ_DCD}"']
+    path = folder / "study.toml"
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    return path
+
+
+def test_trajectory_runs_give_d_corrected_with_the_candidates_viscosity(tmp_path):
+    study = load_study(_lj_manifest(tmp_path))
+    runs = analyse_study(study, workers=2)  # the pool path, with trajectory tasks
+    assert runs.failures == ()
+    comp = compare_study(study, runs.records, rng=np.random.default_rng(5), n_draws=2000)
+    by = {(q.quantity, c.candidate): c.estimate for q in comp.comparisons
+          for c in q.candidates}
+    per_run = {r["run"]: {x["quantity"]: x for x in r["results"]
+                          if x["method"] in ("green_kubo", "msd_wls")}
+               for r in runs.records}
+    for cand, n_logs in (("two_logs", 2), ("one_log", 1)):
+        gk = [v["shear_viscosity"] for k, v in per_run.items() if k.startswith(cand)]
+        assert len(gk) == n_logs
+        # the candidate's viscosity: the inverse-variance weighted mean of its runs'
+        # Green-Kubo values (computed here), or the single run's value
+        w = np.array([1 / x["stderr"] ** 2 for x in gk])
+        eta_ref = float(np.sum(w * [x["value"] for x in gk]) / np.sum(w))
+        eta = by[("shear_viscosity", cand)]
+        assert eta.value == pytest.approx(eta_ref, rel=1e-12)
+        # LJ Green-Kubo from 1000 tau: within 3 stated errors of the published eta* = 3.258
+        assert abs(eta.value - 3.258) < 3 * eta.stderr, (cand, eta.value, eta.stderr)
+        (d_run,) = [v["self_diffusion"] for k, v in per_run.items()
+                    if k.startswith(cand) and "self_diffusion" in v]
+        d = by[("self_diffusion", cand)]
+        assert d.corrected == "yeh_hummer" and d.group == "all"
+        # Yeh-Hummer, evaluated here: D = D_pbc + xi k_B T / (6 pi eta L); the box from the
+        # data's README (the DCD stores it in single precision: rel 1e-6)
+        corr = XI * LJ_T / (6 * math.pi * eta_ref * LJ_BOX)
+        assert d.diagnostics["box_lengths"][0] == pytest.approx(LJ_BOX, rel=1e-6)
+        assert d.value == pytest.approx(d_run["value"] + corr, rel=1e-6)
+        # first-order error: D_pbc's and the correction's (relative error of eta) combined
+        assert d.stderr == pytest.approx(
+            math.hypot(d_run["stderr"], corr * eta.stderr / eta.value), rel=1e-6)
+        # the correction is ~9% of D here (0.0029 on 0.0328), far above rounding
+        assert 0.0027 < corr < 0.0031
+        # the periodic-box D of 100 tau: within 3 stated errors of the published 0.0325
+        assert abs(d_run["value"] - 0.0325) < 3 * d_run["stderr"], d_run

@@ -367,10 +367,13 @@ def test_lammps_dump_needs_units_and_time(tmp_path):
     u = brownian_positions(10, 4, 1.0, 0.01, 8.0, rng)
     path = _write_dump(tmp_path / "d.lammpstrj", u, 8.0, np.arange(10) * 10, "id type x y z")
     data = _write_atomic_data(tmp_path / "lj.data", 4, 8.0)
-    with pytest.raises(InputError, match="do not state their units"):
+    # both missing settings are named in one message (issue 15)
+    with pytest.raises(InputError, match="neither their units nor the time between steps"):
         load_trajectory(data, path)
-    with pytest.raises(InputError, match="time between frames is not known"):
+    with pytest.raises(InputError, match="do not state the time between steps"):
         load_trajectory(data, path, units="lj")
+    with pytest.raises(InputError, match="do not state their units"):
+        load_trajectory(data, path, timestep=0.005)
 
 
 @pytest.mark.parametrize("fmt", ["xtc", "trr"])

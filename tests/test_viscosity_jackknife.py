@@ -53,5 +53,12 @@ def test_linearised_jackknife_equals_refitting(seed, monkeypatch):
     # linearisation error is second order in the O(1/n) change of the curve; 3% allows for
     # the multi-start fit landing a little differently, and a jackknife off by 2x (or one
     # using the wrong n) fails by far.
-    assert g.stderr == pytest.approx(refit_se, rel=0.03), (g.stderr, refit_se, n)
+    fixed = g.diagnostics["stderr_fixed_cutoff"]
+    assert fixed == pytest.approx(refit_se, rel=0.03), (fixed, refit_se, n)
     assert n >= 10
+    # The reported error bar repeats the whole rule (cutoff chosen again, fit again) on each
+    # leave-one-out set. On OU stress the cutoff moves little, so it stays close to the
+    # fixed-cutoff one (measured ratio 1.037 and 1.023 on seeds 80 and 81; median 1.01 and
+    # at most 1.54 over seeds 80-99): a ratio outside [0.8, 1.6] would mean the repeated
+    # rule is not the estimator's rule.
+    assert 0.8 < g.stderr / fixed < 1.6, (g.stderr, fixed)

@@ -8,18 +8,57 @@ from collections.abc import Callable, Iterable, Sequence
 from concurrent.futures import ThreadPoolExecutor
 from typing import TypeVar
 
-__all__ = ["available_cpus", "lane_map", "thread_map"]
+__all__ = ["THREADS_ENV", "available_cpus", "lane_map", "limit_threads", "thread_map"]
+
+#: Environment variable capping the threads a process uses for its own work (thread pools
+#: and ``scipy.fft`` workers). Set by :func:`transport.parallel.run_tasks` in each worker
+#: process so that N processes on N cores do not each start N threads.
+THREADS_ENV = "TRANSPORT_THREADS"
 
 T = TypeVar("T")
 R = TypeVar("R")
 
 
 def available_cpus() -> int:
-    """CPUs this process may run on (its affinity mask where the system has one)."""
+    """Threads this process should use: the CPUs it may run on (its affinity mask where the
+    system has one), capped by ``TRANSPORT_THREADS`` or else ``OMP_NUM_THREADS``.
+
+    ``OMP_NUM_THREADS`` is the usual per-process thread budget of numerical code (common
+    practice); Dask's worker processes are started with it set to 1 by default, which keeps
+    a task on a Dask worker to one thread as well.
+    """
     try:
-        return max(1, len(os.sched_getaffinity(0)))
+        n = max(1, len(os.sched_getaffinity(0)))
     except AttributeError:  # pragma: no cover - not on Linux
-        return max(1, os.cpu_count() or 1)
+        n = max(1, os.cpu_count() or 1)
+    for var in (THREADS_ENV, "OMP_NUM_THREADS"):
+        cap = os.environ.get(var, "").strip()
+        if cap:
+            try:
+                return max(1, min(n, int(cap)))
+            except ValueError:
+                continue  # not a number: ignored, as numerical libraries do
+    return n
+
+
+def limit_threads(n: int) -> None:
+    """Cap this process's threads at `n` from now on (its :func:`available_cpus`, and the
+    BLAS / OpenMP pools when ``threadpoolctl`` is installed).
+
+    Called at the start of each worker process of a pool, so that the workers together
+    use one thread per core.
+    """
+    global _POOL
+    os.environ[THREADS_ENV] = str(max(1, int(n)))
+    with _POOL_LOCK:
+        if _POOL is not None:  # a lane pool sized for more threads: drop it
+            _POOL.shutdown(wait=False)
+            _POOL = None
+    try:
+        from threadpoolctl import threadpool_limits
+    except ImportError:  # optional: numpy's BLAS is hardly used by the analyses
+        return
+    threadpool_limits(max(1, int(n)))
 
 
 def thread_map(fn: Callable[[T], R], items: Iterable[T], workers: int | None = None

@@ -16,13 +16,13 @@ Layout (see README.md, "Comparing candidate potentials")::
 
     [[states]]
     label = "T373"
-    temperature = 373.15              # K
+    temperature = 373.15              # K (reduced, k_B = 1, for runs in lj units)
     pressure = 1.0                    # optional, bar
     density = 820.0                   # optional, kg/m^3
     [states.reference.viscosity]      # at least one reference per state point
     value = 5.1
     stderr = 0.1
-    unit = "mPa s"                    # optional (default mPa s)
+    unit = "mPa s"                    # optional (default mPa s; "reduced (lj)" for lj runs)
     source = "invented measurement"
     [states.reference.diffusion]      # optional
     species = "CRV"
@@ -54,6 +54,7 @@ from pathlib import Path
 from typing import Any
 
 from .errors import InputError
+from .units import REDUCED_LABEL
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -385,9 +386,10 @@ def _states(ck: _Checker, raw: list[Any]) -> list[StatePoint]:
             ck.table(r, rkey, _REF, ("value", "stderr", *(("species",) if q == "diffusion"
                                                           else ())))
             unit = ck.typed(r, "unit", rkey, "str", _UNITS[q])
-            if unit != _UNITS[q]:
+            if unit not in (_UNITS[q], REDUCED_LABEL):
                 raise ck.fail(f"{rkey}.unit", f"unit {unit!r} not supported",
-                              f"give the value in {_UNITS[q]}")
+                              f"give the value in {_UNITS[q]} (or {REDUCED_LABEL!r} for "
+                              "runs in reduced Lennard-Jones units)")
             refs.append(StudyReference(q, ck.typed(r, "value", rkey, "number"),
                                        ck.typed(r, "stderr", rkey, "positive"), unit,
                                        ck.typed(r, "source", rkey, "str", ""),

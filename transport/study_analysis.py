@@ -322,9 +322,10 @@ def analyse_study(study: Study, *, settings: Mapping[str, Any] | None = None,
         As in :func:`transport.parallel.run_tasks`.
     """
     from . import __version__
-    from .parallel import TaskFailure, run_tasks
+    from .parallel import TaskFailure, run_tasks, start_early
     from .store import run_key
 
+    start_early(workers, scheduler)  # the pool's imports overlap the hashing below
     tasks = run_tasks_of(study, settings)
     hashes = [t.run.content_hash() for t in tasks] if store is not None else []
     keys = [run_key(h, t.key_settings(), __version__) for h, t in zip(hashes, tasks,

@@ -73,16 +73,27 @@ def check(ctx: click.Context, files: tuple[str, ...], target: str | None, strict
                       volume=volume, run=run, target=target, strict=strict, json_path=json_path,
                       default_target=DEFAULT_TARGET, verdicts_only=True, command="check")
         return
-    if len(files) < 2:
+    from ..io.trajectory import split_inputs
+
+    topology, _ = split_inputs(files)
+    if len(files) < 2 and not _is_dump(files[0]):
         raise InputError(
             "not a stress file" + (f" ({stress_error.one_line()})" if stress_error else "")
             + ", and no trajectory follows it",
             path=files[0], expected="stress files, or a topology followed by trajectories",
             fix="give the engine's log with the pressure tensor, or TOPOLOGY TRAJECTORY...")
-    if not quiet(ctx):
+    if topology is not None and not quiet(ctx):
         click.echo(f"transport: note: {files[0]} holds no pressure tensor: read as the "
                    "topology of the trajectories that follow", err=True)
-    run_diffusion(ctx, files[0], files[1:], select=select, group_by=group_by, units=units,
+    run_diffusion(ctx, files, select=select, group_by=group_by, units=units,
                   timestep=timestep, temperature=temperature, continuation=continuation,
                   target=target, strict=strict, json_path=json_path,
                   default_target=DEFAULT_TARGET, verdicts_only=True, command="check")
+
+
+def _is_dump(path: str) -> bool:
+    from pathlib import Path
+
+    from ..io._dump_atoms import is_dump
+
+    return Path(path).is_file() and is_dump(Path(path))

@@ -38,6 +38,9 @@ def compare(ctx: click.Context, manifest: str, target: str | None, workers: int 
     """Compare the candidate potentials of the study MANIFEST (TOML): every run analysed,
     replicas pooled, D corrected for the box, deviations from the reference, pairwise
     differences (Holm), ranking with the probability of being closest."""
+    from ..parallel import start_early
+
+    start_early(workers, scheduler)  # the workers' imports overlap this process's own
     import numpy as np
 
     from ..convergence import parse_target

@@ -16,6 +16,7 @@ from ._shared import (
     finish,
     json_option,
     load_stress_files,
+    note,
     parse_target_option,
     parse_time,
     plot_option,
@@ -68,8 +69,8 @@ def _parse_viscosity(value: str | None) -> tuple[float, float] | str | None:
 
 
 @main.command()
-@click.argument("topology", type=click.Path(dir_okay=False))
-@click.argument("trajectories", nargs=-1, required=True, type=click.Path(dir_okay=False))
+@click.argument("files", nargs=-1, required=True, type=click.Path(dir_okay=False),
+                metavar="[TOPOLOGY] TRAJECTORY...")
 @click.option("--select", default="all", show_default=True,
               help="MDAnalysis selection of the atoms to analyse, e.g. 'resname SOL'.")
 @click.option("--group-by", "group_by",
@@ -88,11 +89,18 @@ def _parse_viscosity(value: str | None) -> tuple[float, float] | str | None:
 @click.option("--skip", default="0", show_default=True,
               help="Initial time to drop, in ps (tau).")
 @click.option("--units", default=None,
-              help="Unit convention: required for LAMMPS dumps (real, metal, lj, ...); "
+              help="Unit convention: needed for LAMMPS dumps (real, metal, lj, ...) unless "
+                   "--log or a log.lammps beside the dump gives it; "
                    "'lj' keeps reduced units; otherwise it sets the unit of --timestep.")
 @click.option("--timestep", type=float, default=None,
               help="Integration time step (engine time unit, ps by default): frame times "
                    "are the stored step numbers times this.")
+@click.option("--log", "log", type=click.Path(dir_okay=False), default=None,
+              help="The run's LAMMPS log: units style and time step where not given "
+                   "(default for a dump: log.lammps beside it, when settings are missing).")
+@click.option("--masses", default=None, metavar="TYPE=MASS,...",
+              help="Masses per atom type (g/mol for real and metal), e.g. 1=12.011,2=1.008, "
+                   "for a dump without mass column or a topology without masses.")
 @click.option("--frame-interval", type=float, default=None,
               help="Time between frames (engine time unit, ps by default), overriding the "
                    "file.")
@@ -125,30 +133,44 @@ def _parse_viscosity(value: str | None) -> tuple[float, float] | str | None:
 @json_option
 @plot_option
 @click.pass_context
-def diffusion(ctx: click.Context, topology: str, trajectories: tuple[str, ...], select: str,
+def diffusion(ctx: click.Context, files: tuple[str, ...], select: str,
               group_by: str, unwrap: str, fit_window: str, skip: str, units: str | None,
-              timestep: float | None, frame_interval: float | None,
+              timestep: float | None, log: str | None, masses: str | None,
+              frame_interval: float | None,
               temperature: float | None, continuation: bool, vacf: str, remove_drift: bool,
               scratch: str | None, viscosity: str | None, stress_files: tuple[str, ...],
               target: str | None, strict: bool, json_path: str | None,
               plot_path: str | None) -> None:
-    """Self-diffusion from TOPOLOGY and TRAJECTORIES (several files = replicas, or parts of
-    one run with --continue), per species, with the MSD fitted over its diffusive window,
-    the error bar from independent time blocks, and the VACF as a cross-check.
+    """Self-diffusion from trajectories, per species, with the MSD fitted over its
+    diffusive window, the error bar from independent time blocks, and the VACF as a
+    cross-check. Several trajectories are replicas, or parts of one run with --continue.
+
+    \b
+    Two forms:
+      transport diffusion TOPOLOGY TRAJECTORY...   (e.g. system.data run.dcd)
+      transport diffusion TRAJECTORY...            (files that list their atoms)
+
+    One file, or only LAMMPS dumps, need no topology: a dump with id and type columns
+    (and mol, mass, element, q when present) gives the atoms from its first frame; GRO,
+    PDB and other files MDAnalysis reads alone work too. Otherwise the first file is the
+    topology. A dump's units and time step come from --units/--timestep, or --log, or a
+    log.lammps beside it.
 
     With --target, a run-length verdict follows the results for each species."""
-    run_diffusion(ctx, topology, trajectories, select=select, group_by=group_by,
+    run_diffusion(ctx, files, select=select, group_by=group_by,
                   unwrap=unwrap, fit_window=fit_window, skip=skip, units=units,
-                  timestep=timestep, frame_interval=frame_interval, temperature=temperature,
+                  timestep=timestep, log=log, masses=masses,
+                  frame_interval=frame_interval, temperature=temperature,
                   continuation=continuation, vacf=vacf, remove_drift=remove_drift,
                   scratch=scratch, viscosity=viscosity, stress_files=stress_files,
                   target=target, strict=strict, json_path=json_path, plot_path=plot_path)
 
 
-def run_diffusion(ctx: click.Context, topology: str, trajectories: tuple[str, ...], *,
+def run_diffusion(ctx: click.Context, files: tuple[str, ...], *,
                   select: str = "all", group_by: str = "atom", unwrap: str = "auto",
                   fit_window: str = "auto", skip: str = "0", units: str | None = None,
-                  timestep: float | None = None, frame_interval: float | None = None,
+                  timestep: float | None = None, log: str | None = None,
+                  masses: str | None = None, frame_interval: float | None = None,
                   temperature: float | None = None, continuation: bool = False,
                   vacf: str = "auto", remove_drift: bool = True, scratch: str | None = None,
                   viscosity: str | None = None, stress_files: tuple[str, ...] = (),
@@ -160,7 +182,7 @@ def run_diffusion(ctx: click.Context, topology: str, trajectories: tuple[str, ..
     from .._progress import want_progress
     from ..diffusion import analyse_diffusion
     from ..errors import RunTooShortError
-    from ..io.trajectory import load_trajectory
+    from ..io.trajectory import load_trajectory, split_inputs, trajectory_log
     from ..report.text import format_estimates
     from ..units import get_unit_system
 
@@ -178,22 +200,32 @@ def run_diffusion(ctx: click.Context, topology: str, trajectories: tuple[str, ..
     if stress_files and eta_given != "auto":
         raise click.BadParameter("--stress is read only with --viscosity auto",
                                  param_hint="--stress")
-    check_outputs((topology, *trajectories, *stress_files), json=json_path, plot=plot_path)
-    check_distinct(trajectories)
+    check_outputs((*files, *stress_files, *((log,) if log else ())), json=json_path,
+                  plot=plot_path)
+    topology, trajectories = split_inputs(files)
+    check_distinct(tuple(str(t) for t in trajectories))
+    if log is None:
+        log = trajectory_log(trajectories[0], units=units, timestep=timestep,
+                             frame_interval=frame_interval)
+        if log is not None:
+            note(ctx, f"transport: note: settings missing for the dump are read from {log}, "
+                      "found beside it (give --log FILE to choose another)")
     check_distinct(stress_files)
     ts = 1.0 if units is not None and get_unit_system(units).reduced else 1e12
     window = _diffusion_window(fit_window, ts)
     skip_t = parse_time(skip, "--skip") or 0.0
     series = load_trajectory(
         topology, list(trajectories), select=select, group_by=group_by,  # type: ignore[arg-type]
-        unwrap=unwrap, units=units, timestep=timestep,  # type: ignore[arg-type]
+        unwrap=unwrap, units=units, timestep=timestep, log=log,  # type: ignore[arg-type]
+        masses=masses,
         frame_interval=frame_interval, skip=skip_t / ts, temperature=temperature,
         continuation=continuation, scratch_dir=scratch,
         # velocities serve the VACF and, without --temperature, the kinetic temperature
         velocities=vacf != "no" or temperature is None,
         progress=want_progress(quiet(ctx)),
     )
-    settings = {"topology": topology, "select": select, "group_by": group_by,
+    settings = {"topology": topology, "log": log, "masses": masses, "select": select,
+                "group_by": group_by,
                 "unwrap": unwrap, "unwrap_used": [s.unwrap for s in series],
                 "fit_window": fit_window, "skip": skip, "units": series[0].units.name,
                 "timestep": timestep, "frame_interval": frame_interval,

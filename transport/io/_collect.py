@@ -289,8 +289,8 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
                  reduced: bool, timestep: float | None, frame_interval: float | None,
                  skip: float, temperature: float | None, want_velocities: bool,
                  memory_limit: float, scratch_dir: str | None, progress: bool,
-                 masses_all: np.ndarray, mass_factor: float, notes: tuple[str, ...]
-                 ) -> PositionSeries:
+                 masses_all: np.ndarray, mass_factor: float, notes: tuple[str, ...],
+                 kinetic_temperature: bool = True) -> PositionSeries:
     from ._open import FileHash
 
     hashes = [FileHash(p) for p in paths]
@@ -543,7 +543,7 @@ def _read_series(u: Any, top: Path, paths: list[Path], *, links: _PrivateLinks,
         warn.append(Note("positions were kept in a scratch file (larger than the memory "
                          "limit)"))
     temp, temp_src = temperature, "set point given by the user" if temperature else ""
-    if temp is None:
+    if temp is None and kinetic_temperature:  # not with unknown masses
         twoke = None if res["twoke"] is None else res["twoke"] * mass_factor  # amu -> kg
         temp = _kinetic_temperature(twoke, n_atoms, reduced)
         if temp is not None:

@@ -402,3 +402,79 @@ def _frame_clock(u: Any, dump: _DumpInfo | None, unit_sys: UnitSystem | None, re
             fix="pass --timestep (the integration time step) or --frame-interval",
         )
     return _Clock("time", _PS, 0.0, 1.0, "times stored in the trajectory")
+
+
+#: Suffixes of formats that store coordinates only (no atom names, types or residues).
+_COORDINATES_ONLY = (".dcd", ".xtc", ".trr", ".nc", ".ncdf", ".netcdf", ".h5md", ".crd",
+                     ".mdcrd")
+
+
+def _open_atoms(top: Path | None, first: Path, reduced: bool, links: _PrivateLinks
+                ) -> tuple[Any, Path, str | None]:
+    """The atoms: ``(universe, the file that describes them, mass source)``.
+
+    `top` is the topology, or None when the trajectory `first` must describe its atoms
+    itself. A LAMMPS dump (as topology, or alone) gives its atoms from its first frame
+    (:mod:`transport.io._dump_atoms`; mass source ``"mass column"``, ``"element column"`` or
+    ``""``); any other file is opened by MDAnalysis (mass source None: the topology's own).
+    """
+    import MDAnalysis as mda
+
+    from ._dump_atoms import dump_universe, is_dump
+
+    src = top if top is not None else first
+    if is_dump(src):
+        u, how = dump_universe(src)
+        return u, src, how
+    if top is not None:
+        return _open_topology(top, reduced, first=first, links=links), top, None
+    kw = {"convert_units": False} if reduced else {}
+    u, message = _mda_call(lambda: mda.Universe(str(links.path(first)), **kw))
+    fix = ("give the topology first (a LAMMPS data, PSF, TPR, PDB or GRO file of the same "
+           "atoms), then the trajectory files")
+    if message is not None:
+        package = _missing_package(message)
+        coordinates_only = first.name.lower().removesuffix(".gz").removesuffix(
+            ".bz2").endswith(_COORDINATES_ONLY)
+        raise InputError(
+            "the trajectory cannot describe its atoms on its own" + (
+                " (this format stores coordinates only)" if coordinates_only else
+                f" ({message[:120]})"),
+            path=str(first), expected="a file that lists its atoms (a LAMMPS dump with id "
+                                      "and type columns, GRO, PDB, ...) or a topology",
+            fix=(f"install the package MDAnalysis needs for this format: pip install "
+                 f"{package}" if package else fix))
+    if message is None and not _has_atom_kinds(u):
+        # MDAnalysis opens a coordinates-only file with a minimal topology: atoms, no kinds
+        _close_reader(u)
+        raise InputError(
+            "the trajectory cannot describe its atoms on its own (this format stores "
+            "coordinates only)", path=str(first),
+            expected="a file that lists its atoms (a LAMMPS dump with id and type columns, "
+                     "GRO, PDB, ...) or a topology", fix=fix)
+    if len(u.trajectory) < 2:
+        _close_reader(u)
+        raise InputError(
+            "the file holds one frame: it describes the atoms but not their motion",
+            path=str(first), expected="a trajectory of several frames",
+            fix="give it first, as the topology, then the trajectory files")
+    return u, first, None
+
+
+def _has_atom_kinds(u: Any) -> bool:
+    """True if the atoms have types or names (not MDAnalysis's minimal topology)."""
+    for attr in ("types", "names"):
+        try:
+            getattr(u.atoms, attr)
+            return True
+        except Exception:  # MDAnalysis NoDataError
+            continue
+    return False
+
+
+def _close_reader(u: Any) -> None:
+    """Close the reader of `u`, ignoring errors (before its private links go)."""
+    try:
+        u.trajectory.close()
+    except Exception:
+        pass

@@ -2,7 +2,8 @@
 
 ``group_by`` (:data:`GROUP_BY`) decides: each selected atom a particle of one species
 (``atom``), atoms by type (``type``), centres of mass of residues (``residue``) or of bonded
-molecules (MDAnalysis fragments, ``molecule``). Residues and molecules are named by their
+molecules (MDAnalysis fragments, ``molecule``; without bonds, the molecule ids of a LAMMPS
+dump's ``mol`` column). Residues and molecules are named by their
 residue name when the topology has one, else by composition: a formula in Hill order when
 every atom has an element (``C6H14``), else the types with counts (``t1x2-t2x4``); names
 are unique per composition and depend only on the topology (:func:`_molecule_labels`).
@@ -183,6 +184,15 @@ def _molecule_labels(owner: np.ndarray, n_mol: int, types: np.ndarray,
     return [str(resname[i]) if named[i] else name[int(comp[i])] for i in range(n_mol)]
 
 
+def _molecule_numbers(sel: Any) -> np.ndarray | None:
+    """Molecule numbers stored with the atoms (a LAMMPS dump's ``mol`` column, kept as
+    MDAnalysis ``molnums``), or None."""
+    try:
+        return np.asarray(sel.molnums)
+    except Exception:  # MDAnalysis NoDataError
+        return None
+
+
 def _build_particles(u: Any, sel: Any, group_by: str, selection: str, masses_all: np.ndarray,
                      path: str) -> _Particles:
     idx = np.asarray(sel.indices, dtype=np.intp)
@@ -200,13 +210,16 @@ def _build_particles(u: Any, sel: Any, group_by: str, selection: str, masses_all
         try:
             owner_raw = np.asarray(sel.fragindices)
         except Exception:  # MDAnalysis raises NoDataError without bonds
+            owner_raw = _molecule_numbers(sel)
+        if owner_raw is None:
             raise InputError(
                 "grouping by molecule needs bonds in the topology, and it has none",
                 path=path,
                 expected="a topology with bonds (PSF, TPR, LAMMPS data with a Bonds "
                          "section, PDB with CONECT records)",
-                fix="use --group-by residue, or give a topology that lists bonds",
-            ) from None
+                fix="use --group-by residue, or give a topology that lists bonds (or a "
+                    "LAMMPS dump with a mol column)",
+            )
     uniq, owner = np.unique(owner_raw, return_inverse=True)
     owner = owner.reshape(-1)
     try:

@@ -41,7 +41,7 @@ import contextlib
 import math
 import os
 import warnings as _warnings
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -49,12 +49,13 @@ import numpy as np
 from numpy.typing import ArrayLike
 
 from ..checks import temperature_plausible
-from ..errors import InputError
+from ..errors import InputError, Note
 from ..series import PositionSeries
 from ..units import UnitSystem, get_unit_system
 from ._collect import _Collector, _read_series
+from ._dump_atoms import _type_key, parse_masses
 from ._frames import _mda_error
-from ._universe import _check_file, _open_topology, _PrivateLinks
+from ._universe import _check_file, _open_atoms, _PrivateLinks
 from .grouping import GROUP_BY, GroupBy, _build_particles, _Particles
 from .unwrapping import UNWRAP_SCHEMES, Unwrap, _FrameProcessor
 
@@ -63,9 +64,53 @@ __all__ = [
     "UNWRAP_SCHEMES",
     "load_trajectory",
     "positions_from_arrays",
+    "split_inputs",
+    "trajectory_log",
 ]
 
 _AMU = 1.66053906660e-27  # kg, CODATA 2018 atomic mass constant (= scipy.constants.atomic_mass)
+
+
+def split_inputs(files: Sequence[str | os.PathLike[str]]
+                 ) -> tuple[str | os.PathLike[str] | None, list[str | os.PathLike[str]]]:
+    """``(topology or None, trajectories)`` from the files of one command line.
+
+    One file is a trajectory that describes its atoms itself (a LAMMPS dump with ``id`` and
+    ``type`` columns, or a multi-frame GRO, PDB, ...). Of several files the first is the
+    topology, unless every one is a LAMMPS dump (then they are all trajectories, and the
+    first frame of the first lists the atoms).
+    """
+    from ._dump_atoms import is_dump
+
+    fs = list(files)
+    if not fs:
+        raise ValueError("no file given")
+    if len(fs) == 1 or all(Path(f).is_file() and is_dump(Path(f)) for f in fs):
+        return None, fs
+    return fs[0], fs[1:]
+
+
+def trajectory_log(trajectory: str | os.PathLike[str], *, units: object = None,
+                   timestep: float | None = None, frame_interval: float | None = None
+                   ) -> str | None:
+    """The ``log.lammps`` beside a LAMMPS dump, when the dump's units or time step are not
+    given, or beside a DCD written by LAMMPS, when its units are not given (None otherwise,
+    or when there is none)."""
+    from ._dcd import _lammps_dcd
+    from ._dump_atoms import is_dump
+    from ._run_log import find_run_log
+
+    p = Path(trajectory)
+    if not p.is_file():
+        return None
+    if is_dump(p):
+        if units is not None and (timestep is not None or frame_interval is not None):
+            return None
+    elif not (p.suffix.lower() == ".dcd" and units is None and timestep is None
+              and frame_interval is None and _lammps_dcd(p) is not None):
+        return None
+    found = find_run_log(p)
+    return None if found is None else str(found)
 
 
 def _memory_default() -> float:
@@ -77,7 +122,7 @@ def _memory_default() -> float:
 
 
 def load_trajectory(
-    topology: str | os.PathLike[str],
+    topology: str | os.PathLike[str] | None,
     trajectories: str | os.PathLike[str] | Sequence[str | os.PathLike[str]],
     *,
     select: str = "all",
@@ -90,6 +135,8 @@ def load_trajectory(
     temperature: float | None = None,
     continuation: bool = False,
     velocities: bool = True,
+    masses: str | Mapping[str, float] | None = None,
+    log: str | os.PathLike[str] | None = None,
     memory_limit: float | None = None,
     scratch_dir: str | os.PathLike[str] | None = None,
     progress: bool = False,
@@ -98,9 +145,13 @@ def load_trajectory(
 
     Parameters
     ----------
-    topology : path
-        Any topology MDAnalysis reads (PDB, GRO, PSF, TPR, LAMMPS data, ...). The atom style
-        of a LAMMPS data file is taken from its ``Atoms # style`` comment.
+    topology : path or None
+        Any topology MDAnalysis reads (PDB, GRO, PSF, TPR, LAMMPS data, ...; the atom style
+        of a LAMMPS data file is taken from its ``Atoms # style`` comment), or a LAMMPS dump
+        whose first frame lists the atoms. None: the first trajectory describes its atoms
+        itself: a LAMMPS dump with ``id`` and ``type`` columns (and ``mol``, ``mass``,
+        ``element``, ``q`` when present; see :mod:`transport.io._dump_atoms`), or a
+        multi-frame GRO, PDB or other file MDAnalysis reads on its own.
     trajectories : path or sequence of paths
         Trajectory files (DCD, XTC, TRR, LAMMPS dump, optionally gzip-compressed, ...). Each
         file is an independent replica, unless `continuation` is set.
@@ -133,6 +184,15 @@ def load_trajectory(
         read once); the unwrapping continues across parts.
     velocities : bool
         Read velocities when the trajectory has them.
+    masses : str or mapping, optional
+        Mass per atom type in the engine's mass unit (g/mol for ``real`` and ``metal``):
+        ``"1=12.011,2=1.008"`` or ``{"1": 12.011, "2": 1.008}``; they replace the
+        topology's masses of those types. Centres of mass (``group_by`` ``residue`` or
+        ``molecule``) need a mass for every selected atom.
+    log : path, optional
+        The run's LAMMPS log: its ``units``, ``timestep`` and ``dump`` commands supply the
+        unit style and time step not given as `units` and `timestep` (see
+        :func:`transport.io.log_settings`); a note says what was taken from it.
     memory_limit : float, optional
         Bytes of float32 positions and velocities kept in memory before they are spilled to
         a scratch file (default: half the available memory).
@@ -164,8 +224,17 @@ def load_trajectory(
         trajectories)
     if not trajs:
         raise ValueError("no trajectory given")
-    top = _check_file(topology, "topology")
+    top = None if topology is None else _check_file(topology, "topology")
     paths = [_check_file(t, "trajectory") for t in trajs]
+    mass_map = parse_masses(masses)
+    settings_notes: list[str] = []
+    log_masses: dict[str, float] = {}
+    log_every: tuple[int, int | None, str] | None = None
+    if log is not None:
+        units, timestep, log_masses, log_every = _from_log(
+            _check_file(log, "log"), paths[0], units, timestep, frame_interval,
+            settings_notes)
+    _ask_missing(paths, units, timestep, frame_interval)
     unit_sys = None if units is None else get_unit_system(units)
     reduced = bool(unit_sys is not None and unit_sys.reduced)
     for name, val in (("timestep", timestep), ("frame_interval", frame_interval),
@@ -180,23 +249,114 @@ def load_trajectory(
                          fix="pass a non-negative --skip")
     scratch = None if scratch_dir is None else str(scratch_dir)
     with _PrivateLinks(scratch) as links:
-        u = _open_topology(top, reduced, first=paths[0], links=links)
+        u, atoms_file, mass_source = _open_atoms(top, paths[0], reduced, links)
         try:
-            return _series_from(
-                u, top, paths, links, select=select, group_by=group_by, unwrap=unwrap,
+            out = _series_from(
+                u, atoms_file, paths, links, mass_map=mass_map, mass_source=mass_source,
+                settings_notes=settings_notes, log_masses=log_masses,
+                select=select, group_by=group_by, unwrap=unwrap,
                 unit_sys=unit_sys, reduced=reduced, timestep=timestep,
                 frame_interval=frame_interval, skip=skip, temperature=temperature,
                 continuation=continuation, velocities=velocities,
                 memory_limit=_memory_default() if memory_limit is None else float(memory_limit),
                 scratch_dir=scratch, progress=progress)
+            return _check_dump_interval(out, log_every, timestep, frame_interval)
         finally:
             # close the reader before its private links are deleted
             with contextlib.suppress(Exception):
                 u.trajectory.close()
 
 
+def _from_log(log: Path, first: Path, units: str | UnitSystem | None,
+              timestep: float | None, frame_interval: float | None, notes: list[str]
+              ) -> tuple[str | UnitSystem | None, float | None, dict[str, float],
+                         tuple[int, int | None, str] | None]:
+    """`units` and `timestep`, completed from the run's log, the log's ``mass`` commands
+    and its dump interval (steps, line, file name); what was taken goes to `notes`."""
+    from ._run_log import log_settings
+
+    rs = log_settings(log, first)
+    taken = []
+    if units is None and rs.units is not None:
+        try:
+            get_unit_system(rs.units)
+        except ValueError:
+            raise InputError(f"the log sets units {rs.units!r}, which is not known here",
+                             path=str(log), line=rs.units_line,
+                             expected="units real, metal, lj, si, ...",
+                             fix="pass --units with the convention the numbers are in"
+                             ) from None
+        units = rs.units
+        taken.append(f"units {rs.units} (line {rs.units_line})")
+    elif units is not None and rs.units is not None:
+        given = units if isinstance(units, str) else units.name
+        if given.lower() != rs.units:
+            notes.append(f"--units {given} differs from the log's units {rs.units} "
+                         f"({log.name} line {rs.units_line}); --units is used")
+    if timestep is None and frame_interval is None and rs.timestep is not None:
+        timestep = rs.timestep
+        taken.append(f"timestep {rs.timestep:g}" + (
+            f" (line {rs.timestep_line})" if rs.timestep_line else
+            f" (the default of units {rs.units})"))
+    if rs.dump_every is not None:
+        taken.append(f"dump every {rs.dump_every} steps (line {rs.dump_line})")
+    notes.append(Note(f"run settings from {log}: " + (", ".join(taken) if taken else
+                                                       "none needed")))
+    every = None if rs.dump_every is None else (rs.dump_every, rs.dump_line, log.name)
+    return units, timestep, rs.masses, every
+
+
+def _check_dump_interval(out: list[PositionSeries],
+                         log_every: tuple[int, int | None, str] | None,
+                         timestep: float | None, frame_interval: float | None
+                         ) -> list[PositionSeries]:
+    """A warning on each series whose frames are not the log's dump interval apart (the
+    log may be of another run)."""
+    import dataclasses
+
+    if log_every is None or timestep is None or frame_interval is not None:
+        return out
+    every, line, name = log_every
+    checked = []
+    for s in out:
+        steps = s.dt / (timestep * (1.0 if s.units.reduced else s.units.time))
+        if abs(steps - every) > 1e-6 * every:
+            s = dataclasses.replace(s, warnings=(*s.warnings, (
+                f"frames are {steps:.6g} steps apart, but the log's dump command says every "
+                f"{every} ({name} line {line}): is the log of this run?")))
+        checked.append(s)
+    return checked
+
+
+def _ask_missing(paths: list[Path], units: str | UnitSystem | None,
+                 timestep: float | None, frame_interval: float | None) -> None:
+    """One error listing every setting a LAMMPS dump needs and nobody gave."""
+    from ._dump_atoms import is_dump
+
+    if not is_dump(paths[0]):
+        return
+    missing = []
+    if units is None:
+        missing.append("--units STYLE (the run's units style: real, metal, lj, ...)")
+    if timestep is None and frame_interval is None:
+        missing.append("--timestep DT (the integration time step, in the style's time unit)"
+                       " or --frame-interval")
+    if missing:
+        raise InputError(
+            "LAMMPS dumps state neither their units nor the time between steps, and no "
+            "log gave them" if len(missing) == 2 else
+            "LAMMPS dumps do not state " + ("their units" if units is None else
+                                            "the time between steps") +
+            ", and no log gave it", path=str(paths[0]),
+            expected="the run's " + " and ".join(m.split(" (")[0].split()[0].lstrip("-")
+                                                 for m in missing),
+            fix="pass " + " and ".join(missing) + ", or --log FILE (the run's LAMMPS log)")
+
+
 def _series_from(u: Any, top: Path, paths: list[Path], links: _PrivateLinks, *,
-                 select: str, group_by: str, unwrap: str, unit_sys: UnitSystem | None,
+                 mass_map: dict[str, float], mass_source: str | None,
+                 settings_notes: list[str], log_masses: dict[str, float], select: str,
+                 group_by: str, unwrap: str, unit_sys: UnitSystem | None,
                  reduced: bool, timestep: float | None, frame_interval: float | None,
                  skip: float, temperature: float | None, continuation: bool,
                  velocities: bool, memory_limit: float, scratch_dir: str | None,
@@ -220,16 +380,9 @@ def _series_from(u: Any, top: Path, paths: list[Path], links: _PrivateLinks, *,
         raise InputError(f"selection {select!r} matches no atoms", path=str(top),
                          expected="at least one atom",
                          fix="check the selection against the names/types in the topology")
-    notes: list[str] = []
-    try:
-        masses_raw = np.asarray(u.atoms.masses, dtype=np.float64)
-    except Exception:  # MDAnalysis NoDataError: no masses in the topology
-        masses_raw = np.zeros(u.atoms.n_atoms)
-    if not np.any(masses_raw > 0):
-        masses_raw = np.ones(u.atoms.n_atoms)
-        notes.append("the topology has no masses: all atoms weigh the same for centres of "
-                     "mass and drift removal")
-    masses_raw = np.where(masses_raw > 0, masses_raw, 0.0)
+    notes: list[str] = list(settings_notes)
+    masses_raw, masses_known = _atom_masses(u, top, sel, group_by, mass_map, log_masses,
+                                            mass_source, notes)
     particles = _build_particles(u, sel, group_by, select, masses_raw, str(top))
     if particles.n == 1 and particles.atoms_per_particle[0] > 1:
         raise InputError(
@@ -250,8 +403,66 @@ def _series_from(u: Any, top: Path, paths: list[Path], links: _PrivateLinks, *,
             temperature=temperature, want_velocities=velocities, memory_limit=memory_limit,
             scratch_dir=scratch_dir, progress=progress, masses_all=masses_raw,
             mass_factor=mass_factor, notes=tuple(notes),
+            kinetic_temperature=masses_known or reduced,
         ))
     return out
+
+
+def _atom_masses(u: Any, top: Path, sel: Any, group_by: str, mass_map: dict[str, float],
+                 log_masses: dict[str, float], mass_source: str | None, notes: list[str]
+                 ) -> tuple[np.ndarray, bool]:
+    """Mass of every atom (engine mass unit) and whether all are known: the topology's,
+    with `mass_map` per type, and the log's ``mass`` commands for types still without one.
+
+    Unknown masses are refused when centres of mass need them (``residue``, ``molecule``);
+    for single atoms they serve only the drift removal, where equal weights are used, with
+    a note.
+    """
+    try:
+        m = np.asarray(u.atoms.masses, dtype=np.float64).copy()
+    except Exception:  # MDAnalysis NoDataError: no masses in the topology
+        m = np.zeros(u.atoms.n_atoms)
+    types = np.asarray(u.atoms.types).astype(str)
+    if mass_map:
+        absent = sorted(set(mass_map) - set(types.tolist()), key=_type_key)
+        if absent:
+            raise InputError(
+                f"--masses names type(s) {', '.join(absent)}, which the atoms do not have "
+                f"(types: {', '.join(sorted(set(types.tolist()), key=_type_key)[:12])})",
+                path=str(top), expected="the atom types of the topology",
+                fix="give masses for the types listed")
+        for t, mass in mass_map.items():
+            m[types == t] = mass
+        notes.append(Note(f"masses of type(s) {', '.join(sorted(mass_map, key=_type_key))} "
+                          "from --masses"))
+    m = np.where(np.isfinite(m) & (m > 0), m, 0.0)
+    from_log = sorted({t for t in types[m <= 0].tolist() if t in log_masses}, key=_type_key)
+    for t in from_log:
+        m[types == t] = log_masses[t]
+    if from_log:
+        notes.append(Note(f"masses of type(s) {', '.join(from_log)} from the log's mass "
+                          "commands"))
+    sel_idx = np.asarray(sel.indices, dtype=np.intp)
+    unknown = m[sel_idx] <= 0
+    if np.any(unknown) and group_by in ("residue", "molecule"):
+        kinds = sorted(set(types[sel_idx][unknown].tolist()), key=_type_key)
+        where = ("the dump has no mass or element column" if mass_source == "" else
+                 "the topology gives none")
+        raise InputError(
+            f"centres of mass (--group-by {group_by}) need the masses of the atoms, and "
+            f"type(s) {', '.join(kinds[:12])} have none ({where})", path=str(top),
+            expected="a mass for every selected atom",
+            fix="pass --masses " + ",".join(f"{t}=MASS" for t in kinds[:6]) +
+                " (engine mass unit, g/mol for real and metal), or dump the mass column")
+    known = bool(np.all(m > 0))
+    if not np.any(m > 0):
+        m = np.ones(u.atoms.n_atoms)
+        notes.append("the atoms have no masses: all weigh the same for the drift removal, "
+                     "and the temperature is not taken from the velocities of a run in "
+                     "physical units (give --masses or --temperature)")
+    elif mass_source and not mass_map:
+        notes.append(Note(f"masses from the dump's {mass_source}"))
+    return m, known
 
 
 def positions_from_arrays(
