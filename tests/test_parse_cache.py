@@ -106,6 +106,55 @@ def test_changed_bytes_same_size_and_mtime_is_a_miss(plain_log, tmp_path, monkey
     assert not np.array_equal(after.pressure, before.pressure)
 
 
+def _rewrite_same_size_and_mtime(path: Path) -> None:
+    """Change one digit of the last production row's Pxx, then put the mtime back."""
+    st = path.stat()
+    lines = path.read_bytes().split(b"\n")
+    i = next(k for k in range(len(lines) - 1, 0, -1)
+             if lines[k].startswith(b"    200000 "))
+    toks = lines[i].split()
+    j = lines[i].index(toks[3]) + len(toks[3]) - 1
+    lines[i] = lines[i][:j] + (b"1" if lines[i][j:j + 1] != b"1" else b"2") + lines[i][j + 1:]
+    path.write_bytes(b"\n".join(lines))
+    os.utime(path, ns=(st.st_atime_ns, st.st_mtime_ns))
+    assert (path.stat().st_size, path.stat().st_mtime_ns) == (st.st_size, st.st_mtime_ns)
+
+
+def test_settled_entry_is_served_without_reading_the_file(plain_log, tmp_path, monkeypatch):
+    # an entry stored well after the input's last change is trusted on its key (device,
+    # inode, size, mtime, ctime): no checksum of the input's bytes on a hit
+    import transport.io._cache as cmod
+    import transport.io._open as omod
+
+    monkeypatch.setattr(cmod, "RACY_NS", 0)
+    cache = ParseCache(tmp_path / "cache")
+    first = tio.load_stress(plain_log, cache=cache)
+
+    def no_hash(*a, **k):
+        raise AssertionError("the input was hashed on a settled hit")
+
+    monkeypatch.setattr(omod, "FileHash", no_hash)
+    calls = _count_parses(monkeypatch)
+    _same_series(tio.load_stress(plain_log, cache=cache), first)
+    assert calls == []
+
+
+def test_settled_entry_rewritten_same_size_and_mtime_is_a_miss(plain_log, tmp_path,
+                                                               monkeypatch):
+    # without the checksum, the status-change time (set by the kernel on the write and on
+    # os.utime, never set back by a user) makes the rewritten file another key
+    import transport.io._cache as cmod
+
+    monkeypatch.setattr(cmod, "RACY_NS", 0)
+    cache = ParseCache(tmp_path / "cache")
+    before = tio.load_stress(plain_log, cache=cache)
+    _rewrite_same_size_and_mtime(plain_log)
+    calls = _count_parses(monkeypatch)
+    after = tio.load_stress(plain_log, cache=cache)
+    assert len(calls) == 1  # parsed again, not served
+    assert not np.array_equal(after.pressure, before.pressure)
+
+
 def test_least_recently_used_entries_are_evicted(plain_log, tmp_path, monkeypatch):
     other = tmp_path / "rep1_copy.log"
     other.write_bytes(plain_log.read_bytes())

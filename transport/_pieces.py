@@ -108,6 +108,10 @@ class _Prepared:
     skipped: tuple[float, ...]
     notes: tuple[str, ...]
     level_rule: str = "stress autocorrelation window"
+    # per-piece weighted stress ACF and Helfand MSD when computed chunk by chunk
+    # (transport.viscosity_streaming); None: the estimators compute them from the pieces
+    acfs: np.ndarray | None = None
+    helfand_msd: np.ndarray | None = None
 
 
 def _as_list(series: StressSeries | Sequence[StressSeries]) -> list[StressSeries]:

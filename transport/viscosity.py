@@ -41,8 +41,9 @@ from dataclasses import dataclass
 from typing import Literal
 
 import numpy as np
-from scipy import stats
+from scipy import special  # not scipy.stats: its import takes ~1 s
 
+from ._memory import file_backed
 from ._pieces import (
     _TRACELESS,
     MIN_PIECES,
@@ -114,6 +115,12 @@ class ViscosityAnalysis:
 def _running_integrals(prep: _Prepared, weights: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Per-piece weighted stress ACF (internal pressure^2) and running integral (viscosity)."""
     lag = prep.max_lag
+    if prep.acfs is not None:  # computed chunk by chunk (viscosity_streaming)
+        acfs = prep.acfs
+        pref = np.array([pc.prefactor for pc in prep.pieces])
+        integ = np.zeros_like(acfs)
+        integ[:, 1:] = np.cumsum(0.5 * (acfs[:, 1:] + acfs[:, :-1]), axis=1) * prep.dt
+        return acfs, integ * pref[:, None]
 
     def acf(pc: _Piece) -> np.ndarray:
         return weighted_autocorrelation([pc.stress], weights, max_lag=lag, mix=_TRACELESS,
@@ -240,11 +247,15 @@ def analyse_viscosity(
     components: Components = "all",
     sigma_fraction: float = 0.4,
     n_pieces: int | None = None,
+    stream: bool | None = None,
 ) -> ViscosityAnalysis:
     """Green–Kubo and/or Einstein viscosity sharing one preparation of the data.
 
     Parameters are those of :func:`green_kubo` and :func:`einstein`; `method` chooses which
-    estimates are made.
+    estimates are made. With `stream`, each independent piece is correlated chunk by chunk
+    in bounded memory (:mod:`transport.viscosity_streaming`); the results equal the
+    in-memory ones to rounding. None (default): when a series' pressure is file-backed
+    (memory-mapped; ``load_stress(stream=...)``).
 
     Returns
     -------
@@ -262,6 +273,14 @@ def analyse_viscosity(
     common_warn = tuple(w for s in slist for w in s.warnings) + prep.notes
     common_warn += stress_sampling(prep, slist, weights)  # refuses a too coarse sampling
     # a temperature taken from the file's mean is already a warning of the reader
+    if stream is None:
+        stream = any(file_backed(s.pressure) is not None for s in slist)
+    if stream and prep.pieces:
+        from .viscosity_streaming import streamed_preparation
+
+        prep = streamed_preparation(prep, weights, green_kubo=method != "einstein",
+                                    einstein=method != "green-kubo" and
+                                    len(prep.pieces) >= MIN_PIECES)
     gk = ei = None
     if method in ("green-kubo", "both"):
         gk = _green_kubo(prep, slist, weights, cutoff, sigma_fraction, components, common_warn)
@@ -289,7 +308,7 @@ def _common_diag(prep: _Prepared, slist: list[StressSeries], components: str) ->
 
 
 def _interval(value: float, stderr: float, n: int) -> tuple[float, float]:
-    q = float(stats.t.ppf(0.975, max(n - 1, 1)))
+    q = float(special.stdtrit(max(n - 1, 1), 0.975))  # Student t quantile (t.ppf)
     return value - q * stderr, value + q * stderr
 
 
@@ -556,6 +575,9 @@ def _einstein(
     t = np.arange(lag + 1) * prep.dt
     msd = np.empty((n, lag + 1))
     for i, pc in enumerate(prep.pieces):
+        if prep.helfand_msd is not None:  # computed chunk by chunk (viscosity_streaming)
+            msd = prep.helfand_msd
+            break
         # Helfand moment: time integral of the stress (trapezoid), internal units
         st = _TRACELESS @ np.stack(pc.stress) - pc.offset[:, None]
         g = np.empty_like(st)

@@ -259,6 +259,12 @@ cache_options = [
     click.option("--no-cache", is_flag=True, expose_value=False,
                  callback=_remember("no_cache"),
                  help="Parse the files again and keep nothing in the parse cache."),
+    click.option("--stream/--no-stream", "stream", default=None, expose_value=False,
+                 callback=_remember("stream"),
+                 help="Keep the parsed series in a scratch file in the cache folder and "
+                      "analyse it chunk by chunk, in bounded memory (same results); "
+                      "default: when the series would take more than a third of the "
+                      "available memory."),
 ]
 
 
@@ -274,9 +280,12 @@ def parse_cache(ctx: click.Context) -> Any:
 def load_stress_files(ctx: click.Context, files: tuple[str, ...], **kw: Any) -> list:
     from .._progress import want_progress
     from ..io import load_stress
+    from ..io._cache import cache_folder
 
     cache = parse_cache(ctx)
-    return [load_stress(f, progress=want_progress(quiet(ctx)), cache=cache, **kw)
+    scratch = cache_folder(ctx.meta.get("transport.cache_dir")) / "scratch"
+    return [load_stress(f, progress=want_progress(quiet(ctx)), cache=cache,
+                        stream=ctx.meta.get("transport.stream"), scratch=scratch, **kw)
             for f in files]
 
 

@@ -293,6 +293,8 @@ def _read(
     timestep: float | None = None,
     progress: bool = False,
     want: Collection[str] | None = None,
+    spill: bool | None = False,
+    scratch: Path | None = None,
 ) -> Table:
     from . import _binary
     from ._assemble import assemble, resolve_units
@@ -310,7 +312,7 @@ def _read(
         want_fn = None if want is None else (lambda canon: want)
         with open_bytes(p, digest=True) as op:  # hashed as it is read: no second pass
             result = scan(op, mode="log" if fmt == "lammps-log" else "table", want=want_fn,
-                          progress=progress)
+                          progress=progress, spill=spill, scratch=scratch)
             sha256 = op.sha256()
         if fmt == "lammps-log" and not any(b.n for b in result.blocks) and \
                 result.orphan_header is None:
@@ -462,6 +464,8 @@ def load_stress(
     run: Any = None,
     progress: bool = False,
     cache: Any = None,
+    stream: bool | None = None,
+    scratch: str | os.PathLike[str] | None = None,
 ) -> StressSeries:
     """Read the pressure tensor of one file, in internal units (SI, or reduced LJ units).
 
@@ -495,6 +499,17 @@ def load_stress(
         Keep the parsed columns of text files in this cache and take them from it when the
         same file (same bytes) is read again with the same settings (see
         ``transport.io._cache``). None (default): always parse.
+    stream : bool or None
+        Keep the parsed rows of a text file in a scratch file (memory-mapped, its pages
+        released as they are passed over) instead of memory: True always, None (default)
+        when they would take more than a third of the available memory, False never. The
+        series' pressure is then file-backed and the viscosity estimators work through it
+        chunk by chunk (``analyse_viscosity(stream=...)``). A streamed table is not kept in
+        the parse cache.
+    scratch : str or path-like, optional
+        Folder of the scratch file (default: ``scratch`` in the cache folder,
+        :func:`transport.io._cache.cache_folder`); never beside the input. The file is
+        removed as soon as it is mapped, so nothing is left behind, also after a kill.
 
     Returns
     -------
@@ -511,12 +526,14 @@ def load_stress(
         spacing of the samples (the line where it breaks), no volume, and every problem
         :func:`read_table` reports.
     """
+    from ._cache import cache_folder
     from ._stress import stress_from_table
 
     # The temperature column is read also when a temperature is given: the two are
     # compared (a set point in other units is refused, see transport.checks)
     table = None
-    if cache is not None:
+    sfold = Path(scratch) if scratch is not None else cache_folder() / "scratch"
+    if cache is not None and stream is not True:
         from ._open import check_path
 
         given = check_path(path)
@@ -528,15 +545,22 @@ def load_stress(
         table = cache.load(p, settings)
         if table is None:
             table = _read(path, run=run, units=units, timestep=timestep, progress=progress,
-                          want=_STRESS_WANT)
-            if table.source.format in ("lammps-log", "table"):
+                          want=_STRESS_WANT, spill=stream, scratch=sfold)
+            if table.source.format in ("lammps-log", "table") and not _spilled(table):
                 notes = cache.store(p, settings, table, st)
                 if notes:
                     table = replace(table, warnings=(*table.warnings, *notes))
     else:
         table = _read(path, run=run, units=units, timestep=timestep, progress=progress,
-                      want=_STRESS_WANT)
+                      want=_STRESS_WANT, spill=stream, scratch=sfold)
     return stress_from_table(table, temperature=temperature, volume=volume, _consume=True)
+
+
+def _spilled(table: Table) -> bool:
+    """True if the table's columns live in a scratch file (see ``load_stress(stream=)``)."""
+    from .._memory import file_backed
+
+    return any(file_backed(c) is not None for c in table.columns.values())
 
 
 def load_stress_many(

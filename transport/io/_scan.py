@@ -25,7 +25,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from .._memory import bulk_empty
+from .._memory import bulk_empty, disk_empty, file_backed, release_pages, spills
 from .._progress import progress_bar
 from ..errors import InputError
 from ._columns import TENSOR_ORDER, map_columns
@@ -41,7 +41,7 @@ from ._rowparse import (
 )
 
 if TYPE_CHECKING:
-    pass
+    from pathlib import Path
 
 __all__ = ["ScanBlock", "ScanResult", "scan"]
 
@@ -216,8 +216,12 @@ class _Scanner:
         mode: str,
         want: Callable[[dict[str, str]], Collection[str] | None] | None,
         progress: bool,
+        spill: bool | None = False,
+        scratch: Path | None = None,
     ) -> None:
         self.op = opened
+        self.spill = spill
+        self.scratch = scratch
         self.path = str(opened.path)
         self.mode = mode
         self.want = want
@@ -526,7 +530,9 @@ class _Scanner:
         old = blk.store
         if old is not None:
             cap = max(cap, 2 * need)
-        store = bulk_empty((len(blk.keep), cap))
+        shape = (len(blk.keep), cap)
+        on_disk = spills(self.spill, self.scratch, shape)
+        store = disk_empty(shape, self.scratch) if on_disk else bulk_empty(shape)
         if old is not None:
             store[:, : blk.n] = old[:, : blk.n]
         blk.store = store
@@ -568,6 +574,8 @@ class _Scanner:
         if found.short_last is not None:
             r, seen = found.short_last
             blk.short_last = (job.file_line(r), seen)
+        if blk.store is not None and file_backed(blk.store) is not None:
+            release_pages(blk.store)  # the written rows stay in the scratch file
         if found.lo is not None and found.hi is not None:
             blk.lo = found.lo if blk.lo is None else np.minimum(blk.lo, found.lo)
             blk.hi = found.hi if blk.hi is None else np.maximum(blk.hi, found.hi)
@@ -776,6 +784,8 @@ def scan(
     mode: str,
     want: Callable[[dict[str, str]], Collection[str] | None] | None = None,
     progress: bool = False,
+    spill: bool | None = False,
+    scratch: Path | None = None,
 ) -> ScanResult:
     """Scan an opened text file into blocks.
 
@@ -793,5 +803,9 @@ def scan(
         order otherwise).
     progress : bool
         Show a progress bar on stderr for large files.
+    spill, scratch : bool or None, Path or None
+        Keep the rows in a scratch file in the folder `scratch` instead of memory
+        (:func:`transport._memory.spills` decides; None: when memory is short).
     """
-    return _Scanner(opened, mode=mode, want=want, progress=progress).run()
+    return _Scanner(opened, mode=mode, want=want, progress=progress, spill=spill,
+                    scratch=scratch).run()

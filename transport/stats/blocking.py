@@ -41,7 +41,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from numpy.typing import ArrayLike
-from scipy import stats as _st
+from scipy import special as _sp  # not scipy.stats: its import takes ~1 s
 
 from .correlation import _finite_1d
 
@@ -174,8 +174,8 @@ def block_average(x: ArrayLike, *, alpha: float = 0.01) -> BlockingResult:
         stderr_err[:] = 0.0
     m_stat = np.cumsum(terms[::-1])[::-1]
     dof = levels - np.arange(levels)
-    threshold = _st.chi2.ppf(1.0 - alpha, dof)
-    single = _st.chi2.ppf(1.0 - alpha, 1)
+    threshold = _sp.chdtri(dof, alpha)  # chi2.ppf(1 - alpha, dof)
+    single = _sp.chdtri(1, alpha)
     passed = np.nonzero((m_stat < threshold) & (terms < single))[0]
     converged = bool(passed.size)
     if constant:
@@ -188,7 +188,7 @@ def block_average(x: ArrayLike, *, alpha: float = 0.01) -> BlockingResult:
     else:
         level = int(np.argmax(stderr))
     se = float(stderr[level])
-    t = float(_st.t.ppf(0.975, max(int(nb[level]) - 1, 1)))
+    t = float(_sp.stdtrit(max(int(nb[level]) - 1, 1), 0.975))  # t.ppf
     return BlockingResult(
         value=mean,
         stderr=se,
