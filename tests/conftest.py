@@ -23,6 +23,7 @@ import shutil
 import tempfile
 from pathlib import Path
 
+import pytest
 from hypothesis import HealthCheck, settings
 
 settings.register_profile("ci", derandomize=True, database=None, deadline=None,
@@ -60,3 +61,22 @@ def committed(path: Path) -> Path:
     assert path.is_file(), (f"committed test data {path} is missing: restore it with "
                             f"`git checkout -- {path.relative_to(DATA.parent.parent)}`")
     return path
+
+
+#: Thread limits that importing dask.distributed writes into this process's environment
+#: (OMP_NUM_THREADS=1 and friends, meant for its workers); transport's thread counts honour
+#: them, so a test that imports dask would make every later test single-threaded (and skip
+#: the forked trajectory readers). Each test gets them back as they were.
+_THREAD_ENV = ("OMP_NUM_THREADS", "MKL_NUM_THREADS", "OPENBLAS_NUM_THREADS",
+               "MALLOC_TRIM_THRESHOLD_", "TRANSPORT_THREADS")
+_THREAD_ENV_AT_START = {k: os.environ.get(k) for k in _THREAD_ENV}
+
+
+@pytest.fixture(autouse=True)
+def _restore_thread_env():
+    yield
+    for key, value in _THREAD_ENV_AT_START.items():
+        if value is None:
+            os.environ.pop(key, None)
+        else:
+            os.environ[key] = value

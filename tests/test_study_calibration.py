@@ -12,8 +12,9 @@ The coverage of the truth by each candidate's pooled interval is printed, not as
 at 20 ps per run the Green-Kubo estimate is biased high (measured on 100 runs: mean 5.39
 for a true 5.0, single-run error bars ~8% smaller than the scatter), which is a finding about
 short runs, not about the comparison. Measured (2026-12-05): 11 of 300 significant (3.7%),
-coverage 565 of 599 (94.3%), 19 of 1200 runs refused as too short; 240 s on the shared
-2-core machine at load 5-8 (marked slow).
+coverage 565 of 599 (94.3%), 19 of 1200 runs refused as too short; with the whole-rule
+jackknife error bar of Green-Kubo 7 of 300 (2.3%), coverage 570 of 598, 67 refused; 240 s
+on the shared 2-core machine at load 5-8 (marked slow).
 
 Number of seeds: 300 studies. The accepted counts 7..24 of 300 hold 98.4% of the binomial
 (n = 300, p = 0.05) (scipy.stats.binom), so a calibrated test fails here 1.6% of the time;
@@ -81,9 +82,11 @@ def test_equal_candidates_false_positive_rate_is_nominal(tmp_path):
     print(f"significant {significant}/{SEEDS}, coverage {covered}/{n_intervals}, "
           f"runs refused {refused}/{4 * SEEDS}, studies without a call {no_call}")
     # a run is refused (RunTooShortError) when its Green-Kubo interval reaches zero: at this
-    # length measured 19 of 1200 runs (1.6%; one study lost both runs of a candidate and
-    # makes no call); the bound 2.5% flags a change in how often short runs are refused
-    assert refused <= 0.025 * 4 * SEEDS and no_call <= 3, (refused, no_call)
+    # length measured 67 of 1200 runs (5.6%; 19 before the error bar repeated the cutoff
+    # choice on each leave-one-out set, which widens the unstable short-run fits; two
+    # studies lost both runs of a candidate and make no call); the bound 7.5% (binomial sd
+    # of 67 counts ~8, so +3 sd) flags a change in how often short runs are refused
+    assert refused <= 0.075 * 4 * SEEDS and no_call <= 4, (refused, no_call)
     # accepted band of the false-positive count: the central 98.4% of binom(300, 0.05)
     lo, hi = int(binom.ppf(0.01, SEEDS, 0.05)), int(binom.ppf(0.99, SEEDS, 0.05))
     assert (lo, hi) == (7, 24)  # the band the docstring's power figures refer to
